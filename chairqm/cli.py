@@ -1,0 +1,182 @@
+"""The `chairqm` command: check a configuration, run the workflow, answer A-value questions."""
+
+from __future__ import annotations
+
+import argparse
+import os
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+from . import __version__
+from . import config as cq_config
+from .errors import ChairqmError
+
+EXIT_INPUT = 2
+STAGE_ORDER = ["intake", "seeds", "minima", "thermo"]
+
+
+def project_root() -> Path:
+    return Path(__file__).resolve().parent.parent
+
+
+def snakefile() -> Path:
+    sf = project_root() / "Snakefile"
+    if not sf.is_file():
+        raise ChairqmError(f"the workflow (Snakefile) was not found next to the package at {sf.parent}: "
+                           "install chairqm from its source folder with `pip install -e .`")
+    return sf
+
+
+def available_stages() -> list[str]:
+    """Stages whose rules exist in this version (read from the workflow's named end points)."""
+    targets = project_root() / "workflows" / "rules" / "targets.smk"
+    found = set(re.findall(r"^rule until_(\w+):", targets.read_text(), re.M)) if targets.is_file() else set()
+    return [s for s in STAGE_ORDER if s in found]
+
+
+def full_run_available() -> bool:
+    targets = project_root() / "workflows" / "rules" / "targets.smk"
+    return targets.is_file() and re.search(r"^rule all:", targets.read_text(), re.M) is not None
+
+
+def _prepare(config_path):
+    """Validate configuration, molecules and engine settings; return (cfg, plan). Raises ChairqmError."""
+    from .plan import make_plan
+    cfg = cq_config.load(config_path)
+    plan = make_plan(cfg)
+    problems = list(plan.problems)
+    try:
+        from . import engine
+    except ImportError:
+        engine = None
+    if engine is not None:
+        s = cfg["settings"]
+        try:
+            engine.check_settings(s["engine"], s["method"], s.get("solvent"))
+        except ChairqmError as exc:
+            problems.append(str(exc))
+    if problems:
+        raise ChairqmError("\n".join(problems))
+    return cfg, plan
+
+
+def _table(plan) -> str:
+    rows = [("molecule", "ring atoms", "substituents", "stereo")]
+    for m in plan.molecules:
+        ring = "-".join(f"{e}{i}" for e, i in zip(m.ring_elements, m.ring))
+        subs = ", ".join(f"{s.id}@{s.ring_atom} {s.fragment}" for s in m.substituents) or "none"
+        name = m.name + (" (reference)" if m.reference else "")
+        rows.append((name, ring, subs, m.stereo))
+    widths = [max(len(r[i]) for r in rows) for i in range(4)]
+    lines = ["  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in rows]
+    lines.insert(1, "  ".join("-" * w for w in widths))
+    return "\n".join(lines)
+
+
+def cmd_check(args) -> int:
+    cfg, plan = _prepare(args.config)
+    print(_table(plan))
+    s = cfg["settings"]
+    solvent = s.get("solvent") or {}
+    print(f"\n{len(plan.molecules)} molecule(s); {s['method']} with {s['engine']}; solvent: "
+          f"{(solvent.get('model', '') + ' ' + solvent.get('name', '')).strip() or 'none (gas phase)'}; "
+          f"T = {', '.join(f'{t:g}' for t in s['temperatures_k'])} K")
+    return 0
+
+
+def default_out(config_path) -> Path:
+    return Path("results") / Path(config_path).stem
+
+
+def run_workflow(config_path, out, cores=2, until=None, extra=()) -> int:
+    cfg, plan = _prepare(config_path)
+    stages = available_stages()
+    if until is not None and until not in stages:
+        raise ChairqmError(f"--until {until}: this version provides the stages {', '.join(stages)}"
+                           + ("" if full_run_available() else " (the full run is not built yet)"))
+    if until is None:
+        if not full_run_available():
+            until = stages[-1]
+            print(f"chairqm: the stages after '{until}' are not built yet; running up to '{until}'", file=sys.stderr)
+        target = "all" if until is None else f"until_{until}"
+    else:
+        target = f"until_{until}"
+    out = Path(out).resolve()
+    out.mkdir(parents=True, exist_ok=True)
+    cmd = [sys.executable, "-m", "snakemake", target, "--snakefile", str(snakefile()), "--directory", str(out),
+           "--config", f"chairqm_config={Path(config_path).resolve()}", "--cores", str(cores),
+           "--rerun-incomplete", *(["--printshellcmds"] if os.environ.get("CHAIRQM_VERBOSE") else ["--quiet", "rules"]),
+           *extra]
+    env = dict(os.environ)
+    env.setdefault("OMP_NUM_THREADS", "1")
+    env.setdefault("OPENBLAS_NUM_THREADS", "1")
+    env.setdefault("MKL_NUM_THREADS", "1")
+    proc = subprocess.run(cmd, env=env)
+    if proc.returncode != 0:
+        print(f"chairqm: the workflow stopped with an error (exit {proc.returncode}); "
+              f"logs are in {out}/<molecule>/logs/", file=sys.stderr)
+        return proc.returncode
+    return _finish(out, plan, until)
+
+
+def _finish(out: Path, plan, until) -> int:
+    summary = out / "summary.csv"
+    if until is None and summary.is_file():
+        import pandas as pd
+        df = pd.read_csv(summary)
+        failed = sorted(set(df.loc[df["status"] != "ok", "molecule"]))
+        report = out / "report.html"
+        print(f"chairqm: results in {out}" + (f"; report: {report}" if report.is_file() else ""))
+        if failed:
+            print(f"chairqm: {len(failed)} molecule(s) failed: {', '.join(failed)} (see summary.csv)", file=sys.stderr)
+            return 1
+        return 0
+    print(f"chairqm: stage '{until}' done; results in {out}")
+    return 0
+
+
+def cmd_run(args, extra) -> int:
+    out = args.out or default_out(args.config)
+    return run_workflow(args.config, out, cores=args.cores, until=args.until, extra=extra)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    ap = argparse.ArgumentParser(prog="chairqm", description="Chair, twist-boat and rotamer populations of "
+                                 "saturated six-membered rings from GFN2-xTB free energies.")
+    ap.add_argument("--version", action="version", version=f"chairqm {__version__}")
+    sub = ap.add_subparsers(dest="command", required=True)
+    c = sub.add_parser("check", help="validate a configuration and its molecules without computing")
+    c.add_argument("config")
+    r = sub.add_parser("run", help="run the workflow (arguments after `--` go to Snakemake)")
+    r.add_argument("config")
+    r.add_argument("--out", help="output folder (default results/<config name>)")
+    r.add_argument("--cores", type=int, default=2)
+    r.add_argument("--until", help="stop after this stage: " + ", ".join(STAGE_ORDER))
+    return ap
+
+
+def main(argv=None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    extra = []
+    if "--" in argv:
+        k = argv.index("--")
+        argv, extra = argv[:k], argv[k + 1:]
+    args = build_parser().parse_args(argv)
+    try:
+        if args.command == "check":
+            return cmd_check(args)
+        if args.command == "run":
+            return cmd_run(args, extra)
+    except ChairqmError as exc:
+        for line in str(exc).splitlines():
+            print(f"chairqm: error: {line}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        return 130
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,128 @@
+"""Read a YAML run configuration safely, validate it against the package's JSON Schema and fill defaults."""
+
+from __future__ import annotations
+
+import copy
+import difflib
+import json
+from importlib import resources
+from pathlib import Path
+
+import jsonschema
+import yaml
+
+from .errors import ChairqmError
+
+SCHEMA_FILE = "config.schema.json"
+
+
+def schema_path() -> Path:
+    """Path of the configuration schema; the Snakefile validates with this same file."""
+    return Path(str(resources.files("chairqm") / "schemas" / SCHEMA_FILE))
+
+
+def load_schema(name: str = SCHEMA_FILE) -> dict:
+    return json.loads((resources.files("chairqm") / "schemas" / name).read_text())
+
+
+def _fill_defaults(node, schema):
+    """Fill defaults of object properties recursively (the schema's `default` values)."""
+    if not isinstance(node, dict) or schema.get("type") != "object":
+        return
+    for key, sub in schema.get("properties", {}).items():
+        if key not in node and "default" in sub:
+            node[key] = copy.deepcopy(sub["default"])
+        if key in node:
+            if sub.get("type") == "object":
+                _fill_defaults(node[key], sub)
+            elif sub.get("type") == "array" and isinstance(node[key], list):
+                for item in node[key]:
+                    _fill_defaults(item, sub.get("items", {}))
+
+
+def _subschema(schema, path):
+    node = schema
+    for part in path:
+        if isinstance(part, int):
+            node = node.get("items", {})
+        else:
+            node = node.get("properties", {}).get(part, {})
+    return node
+
+
+def _where(path) -> str:
+    out = ""
+    for p in path:
+        out += f"[{p}]" if isinstance(p, int) else (("." if out else "") + str(p))
+    return out or "top level"
+
+
+def _messages(cfg: dict, schema: dict) -> list[str]:
+    validator = jsonschema.Draft202012Validator(schema)
+    msgs = []
+    for err in sorted(validator.iter_errors(cfg), key=lambda e: list(map(str, e.absolute_path))):
+        path = list(err.absolute_path)
+        where = _where(path)
+        if err.validator == "additionalProperties":
+            known = list(_subschema(schema, path).get("properties", {}))
+            extra = [k for k in err.instance if k not in known]
+            for k in extra:
+                hint = difflib.get_close_matches(str(k), known, n=1)
+                tip = f" (did you mean '{hint[0]}'?)" if hint else f" (known keys: {', '.join(known)})"
+                msgs.append(f"unknown key '{k}' at {where}{tip}")
+        elif err.validator == "oneOf" and path and isinstance(path[-1], int) and len(path) == 2:
+            msgs.append(f"{where}: give exactly one of 'smiles' or 'file'")
+        elif err.validator == "pattern" and path and path[-1] == "name":
+            msgs.append(f"{where}: unsafe molecule name {err.instance!r}: use letters, digits, '-', '_', '.' "
+                        "(no leading dot, no '/', at most 64 characters), because it becomes a folder name")
+        elif err.validator == "oneOf" and path and path[-1] == "solvent":
+            msgs.append(f"{where}: solvent must be null or {{model: alpb|gbsa, name: <solvent>}}, got {err.instance!r}")
+        else:
+            msgs.append(f"{where}: {err.message}")
+    return msgs
+
+
+def validate(cfg, base_dir: Path | None = None) -> dict:
+    """Validate a configuration dict; return a copy with defaults filled. Raises ChairqmError listing every problem."""
+    if not isinstance(cfg, dict):
+        raise ChairqmError("the configuration must be a YAML mapping with 'molecules' and 'settings'")
+    schema = load_schema()
+    msgs = _messages(cfg, schema)
+    if not msgs:
+        names = [m["name"] for m in cfg["molecules"]]
+        seen = set()
+        for n in names:
+            if n.lower() in seen:
+                msgs.append(f"molecule name '{n}' is used twice (names must be unique, case-insensitively, "
+                            "because each becomes a folder)")
+            seen.add(n.lower())
+        for i, m in enumerate(cfg["molecules"]):
+            if "file" in m and str(m["file"]).lower().endswith(".xyz") and "charge" not in m:
+                msgs.append(f"molecules[{i}] ({m['name']}): an .xyz file carries no charge: add 'charge: 0' "
+                            "(or the molecule's charge)")
+    if msgs:
+        raise ChairqmError("\n".join(msgs))
+    out = copy.deepcopy(cfg)
+    _fill_defaults(out, schema)
+    if base_dir is not None:
+        out["_base_dir"] = str(Path(base_dir).resolve())
+    return out
+
+
+def load(path) -> dict:
+    """Load and validate a YAML configuration file (yaml.safe_load: no arbitrary objects)."""
+    path = Path(path)
+    if not path.is_file():
+        raise ChairqmError(f"configuration file not found: {path}")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ChairqmError(f"cannot read configuration {path}: {exc}") from None
+    try:
+        cfg = yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+        raise ChairqmError(f"{path}: not valid YAML{where}: {problem}") from None
+    return validate(cfg, base_dir=path.parent)

@@ -1,0 +1,396 @@
+"""Intake: turn a configuration entry into a perceived molecule — its saturated six-membered ring and substituents.
+
+Atom order is the input's: for SMILES, RDKit's parse order of the heavy atoms followed by the added
+hydrogens; for structure files, the file's atom order. Every later stage uses this order, and the
+perceived molecule is stored as an atom-mapped SMILES with explicit hydrogens so that order and
+stereo survive a round trip through a text file.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+
+from rdkit import Chem, RDLogger
+from rdkit.Chem.EnumerateStereoisomers import EnumerateStereoisomers, StereoEnumerationOptions
+
+from .errors import ChairqmError
+
+RDLogger.DisableLog("rdApp.*")
+
+MAX_Z = 86                      # GFN2-xTB is parametrised for H–Rn (Bannwarth, Ehlert, Grimme, JCTC 2019, 15, 1652)
+RING_ELEMENTS = {"C", "N", "O", "S"}
+MAX_STEREO_ISOMERS = 16
+
+
+@dataclass
+class Substituent:
+    id: str                     # s1, s2, ... in ring order
+    ring_atom: int              # 0-based index of the ring atom it is bonded to
+    first_atom: int             # the group's atom bonded to the ring atom
+    atoms: list[int]            # every atom of the group, hydrogens included
+    fragment: str               # canonical fragment SMILES with attachment point, e.g. [*]C
+    charge: int = 0             # formal charge of the group
+
+
+@dataclass
+class Perceived:
+    name: str
+    smiles: str                 # canonical isomeric SMILES (no explicit H)
+    mapped_smiles: str          # explicit-H SMILES with atom maps = index + 1 (order and stereo)
+    charge: int
+    multiplicity: int
+    ring: list[int]             # analysed ring, ordered around the ring
+    rings: list[list[int]]      # every saturated six-membered ring found
+    ring_elements: list[str]
+    substituents: list[Substituent]
+    stereo: str                 # human-readable stereo summary
+    source: str                 # 'smiles' or the file name
+    input_hash: str
+    note: str = ""
+    reference: bool = False
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def mol(self) -> Chem.Mol:
+        return mol_from_mapped(self.mapped_smiles)
+
+    def to_json(self) -> str:
+        return json.dumps(asdict(self), indent=1, sort_keys=True)
+
+    @classmethod
+    def from_json(cls, text: str) -> "Perceived":
+        d = json.loads(text)
+        d["substituents"] = [Substituent(**s) for s in d["substituents"]]
+        return cls(**d)
+
+
+def mol_from_mapped(mapped: str) -> Chem.Mol:
+    """Rebuild a molecule (explicit H, stereo) from atom-mapped SMILES, atoms in map order."""
+    params = Chem.SmilesParserParams()
+    params.removeHs = False
+    mol = Chem.MolFromSmiles(mapped, params)
+    order = sorted(range(mol.GetNumAtoms()), key=lambda i: mol.GetAtomWithIdx(i).GetAtomMapNum())
+    mol = Chem.RenumberAtoms(mol, order)
+    for a in mol.GetAtoms():
+        a.SetAtomMapNum(0)
+    Chem.AssignStereochemistry(mol, cleanIt=True, force=True)
+    return mol
+
+
+def mapped_smiles(mol: Chem.Mol) -> str:
+    m = Chem.Mol(mol)
+    for a in m.GetAtoms():
+        a.SetAtomMapNum(a.GetIdx() + 1)
+    return Chem.MolToSmiles(m, allHsExplicit=False)
+
+
+def canonical_fragment(smiles: str) -> str:
+    """Canonical fragment SMILES with a bracketed attachment point '[*]' first, e.g. '[*]C(F)(F)F'."""
+    mol = Chem.MolFromSmiles(smiles)
+    if mol is None:
+        raise ChairqmError(f"invalid fragment SMILES {smiles!r}")
+    dummies = [a for a in mol.GetAtoms() if a.GetAtomicNum() == 0]
+    if len(dummies) != 1:
+        raise ChairqmError(f"fragment {smiles!r} must have exactly one attachment point '[*]'")
+    for a in dummies:
+        a.SetIsotope(0)
+        a.SetAtomMapNum(0)
+    root = dummies[0].GetIdx()
+    smi = Chem.MolToSmiles(mol, rootedAtAtom=root, canonical=True)
+    if smi.startswith("*"):
+        smi = "[*]" + smi[1:]
+    return smi
+
+
+# ---------------------------------------------------------------- reading
+
+def _sanitize_message(mol) -> str:
+    try:
+        Chem.SanitizeMol(mol)
+    except Exception as exc:          # RDKit raises several types; we only want its words
+        return str(exc).strip().splitlines()[0]
+    return ""
+
+
+def _from_smiles(name: str, smiles: str) -> Chem.Mol:
+    raw = Chem.MolFromSmiles(smiles, sanitize=False)
+    if raw is None:
+        raise ChairqmError(f"{name}: cannot parse SMILES {smiles!r}: check brackets, ring-closure digits and atom symbols")
+    problem = _sanitize_message(Chem.Mol(raw))
+    if problem:
+        raise ChairqmError(f"{name}: SMILES {smiles!r} is not a valid molecule ({problem})")
+    mol = Chem.MolFromSmiles(smiles)
+    return Chem.AddHs(mol)
+
+
+def _from_file(name: str, path: Path, charge) -> Chem.Mol:
+    if not path.is_file():
+        raise ChairqmError(f"{name}: structure file not found: {path}")
+    suffix = path.suffix.lower()
+    try:
+        if suffix in (".sdf", ".mol"):
+            if suffix == ".sdf":
+                supp = Chem.SDMolSupplier(str(path), removeHs=False, sanitize=False)
+                mols = [m for m in supp]
+                if len(mols) != 1:
+                    raise ChairqmError(f"{name}: {path.name} holds {len(mols)} records; give one molecule per file")
+                mol = mols[0]
+            else:
+                mol = Chem.MolFromMolFile(str(path), removeHs=False, sanitize=False)
+            if mol is None:
+                raise ChairqmError(f"{name}: cannot read {path.name} as a MOL/SDF record")
+            problem = _sanitize_message(mol)
+            if problem:
+                raise ChairqmError(f"{name}: {path.name} is not a valid molecule ({problem})")
+            if mol.GetNumConformers() and mol.GetConformer().Is3D():
+                Chem.AssignStereochemistryFrom3D(mol)
+            else:
+                Chem.AssignChiralTypesFromBondDirs(mol)
+                Chem.AssignStereochemistry(mol, cleanIt=True, force=True)
+            mol = Chem.AddHs(mol, addCoords=mol.GetNumConformers() > 0)
+        elif suffix == ".xyz":
+            from rdkit.Chem import rdDetermineBonds
+            mol = Chem.MolFromXYZFile(str(path))
+            if mol is None or mol.GetNumAtoms() == 0:
+                raise ChairqmError(f"{name}: cannot read {path.name} as XYZ (first line: atom count, second: comment)")
+            mol = Chem.Mol(mol)
+            try:
+                rdDetermineBonds.DetermineBonds(mol, charge=int(charge))
+            except Exception as exc:
+                raise ChairqmError(f"{name}: cannot assign bonds to {path.name} with charge {charge} "
+                                   f"({str(exc).strip().splitlines()[0]}): check the charge and geometry") from None
+            Chem.SanitizeMol(mol)
+            Chem.AssignStereochemistryFrom3D(mol)
+        else:
+            raise ChairqmError(f"{name}: unsupported structure file type '{suffix}': use .sdf, .mol or .xyz")
+    except ChairqmError:
+        raise
+    except Exception as exc:
+        raise ChairqmError(f"{name}: cannot read {path.name}: {str(exc).strip().splitlines()[0]}") from None
+    return mol
+
+
+# ---------------------------------------------------------------- perception
+
+def saturated_six_rings(mol: Chem.Mol) -> list[list[int]]:
+    """Six-membered rings of C/N/O/S whose atoms are all sp3 (no multiple or aromatic bonds at ring atoms)."""
+    rings = []
+    for ring in mol.GetRingInfo().AtomRings():
+        if len(ring) != 6:
+            continue
+        ok = True
+        for i in ring:
+            a = mol.GetAtomWithIdx(i)
+            if a.GetSymbol() not in RING_ELEMENTS or a.GetIsAromatic():
+                ok = False
+            elif any(b.GetBondType() != Chem.BondType.SINGLE for b in a.GetBonds()):
+                ok = False
+        if ok:
+            rings.append(_order_ring(mol, list(ring)))
+    return sorted(rings)
+
+
+def _order_ring(mol, ring):
+    """Start at the lowest index, walk towards its lower-indexed ring neighbour."""
+    start = min(ring)
+    k = ring.index(start)
+    ring = ring[k:] + ring[:k]
+    if ring[-1] < ring[1]:
+        ring = [ring[0]] + ring[1:][::-1]
+    return ring
+
+
+def _group_atoms(mol, ring_set, ring_atom, first):
+    seen = {first}
+    stack = [first]
+    while stack:
+        i = stack.pop()
+        for nb in mol.GetAtomWithIdx(i).GetNeighbors():
+            j = nb.GetIdx()
+            if j in ring_set:
+                if i != first or j != ring_atom:
+                    return None          # the group touches the ring again: fused, bridged or spiro
+                continue
+            if j not in seen:
+                seen.add(j)
+                stack.append(j)
+    return sorted(seen)
+
+
+def _fragment(mol, ring_atom, first, atoms) -> str:
+    """Canonical fragment SMILES of the group, cut at the ring bond (RDKit keeps the group's stereo)."""
+    if mol.GetAtomWithIdx(first).GetAtomicNum() == 1:
+        return "[*][H]"
+    bond = mol.GetBondBetweenAtoms(ring_atom, first)
+    pieces = Chem.FragmentOnBonds(mol, [bond.GetIdx()], addDummies=True, dummyLabels=[(0, 0)])
+    frags = []
+    groups = Chem.GetMolFrags(pieces, asMols=True, sanitizeFrags=False, frags=frags)
+    group = groups[frags[first]]
+    group = Chem.RemoveHs(group, sanitize=False)
+    try:
+        Chem.SanitizeMol(group)
+    except Exception:
+        pass
+    return canonical_fragment(Chem.MolToSmiles(group))
+
+
+def _stereo(mol, name, enumerate_stereo):
+    """Return list of (suffix, mol) with stereo fully set, or raise naming unspecified ring stereocentres."""
+    info = Chem.FindPotentialStereo(mol)
+    unspecified = [s for s in info if s.specified == Chem.StereoSpecified.Unspecified]
+    if not unspecified:
+        return [("", mol)]
+    if len(info) == 1:
+        # one stereo element only: the two choices are enantiomers, whose conformer energies are equal
+        iso = next(iter(EnumerateStereoisomers(mol, options=StereoEnumerationOptions(onlyUnassigned=True, unique=True))))
+        return [("", iso)]
+    if not enumerate_stereo:
+        parts = []
+        for s in unspecified:
+            if s.type == Chem.StereoType.Atom_Tetrahedral:
+                a = mol.GetAtomWithIdx(s.centeredOn)
+                where = "ring " if a.IsInRing() else ""
+                parts.append(f"{where}atom {s.centeredOn} ({a.GetSymbol()})")
+            else:
+                b = mol.GetBondWithIdx(s.centeredOn)
+                parts.append(f"double bond {b.GetBeginAtomIdx()}-{b.GetEndAtomIdx()}")
+        raise ChairqmError(f"{name}: stereo not specified at {', '.join(parts)}: write the relative configuration "
+                           "(e.g. C[C@H]1CC[C@@H](C)CC1 for cis-1,4) or set 'enumerate_stereo: true'")
+    opts = StereoEnumerationOptions(onlyUnassigned=True, unique=True, maxIsomers=MAX_STEREO_ISOMERS)
+    out, seen = [], set()
+    for iso in EnumerateStereoisomers(mol, options=opts):
+        smi = Chem.MolToSmiles(Chem.RemoveHs(iso))
+        mirror = Chem.MolToSmiles(Chem.RemoveHs(_mirror(iso)))
+        key = min(smi, mirror)      # enantiomers have equal conformer energies: keep one of each pair
+        if key in seen:
+            continue
+        seen.add(key)
+        out.append((f"-iso{len(out) + 1}", iso))
+    return out
+
+
+def _mirror(mol):
+    m = Chem.Mol(mol)
+    for a in m.GetAtoms():
+        t = a.GetChiralTag()
+        if t == Chem.ChiralType.CHI_TETRAHEDRAL_CW:
+            a.SetChiralTag(Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+        elif t == Chem.ChiralType.CHI_TETRAHEDRAL_CCW:
+            a.SetChiralTag(Chem.ChiralType.CHI_TETRAHEDRAL_CW)
+    return m
+
+
+def _stereo_summary(mol) -> str:
+    labels = []
+    Chem.AssignStereochemistry(mol, cleanIt=True, force=True)
+    for s in Chem.FindPotentialStereo(mol):
+        if s.type == Chem.StereoType.Atom_Tetrahedral:
+            a = mol.GetAtomWithIdx(s.centeredOn)
+            lab = a.GetProp("_CIPCode") if a.HasProp("_CIPCode") else ("@" if a.GetChiralTag() == Chem.ChiralType.CHI_TETRAHEDRAL_CCW else "@@")
+            labels.append(f"{s.centeredOn}{lab}")
+        elif s.type == Chem.StereoType.Bond_Double:
+            labels.append(f"b{s.centeredOn}{s.descriptor}")
+    return " ".join(labels) if labels else "none"
+
+
+def perceive(entry: dict, base_dir: Path | str = ".", settings: dict | None = None) -> list[Perceived]:
+    """Perceive one configuration entry; a list because `enumerate_stereo` may expand it into isomers."""
+    settings = settings or {}
+    name = entry["name"]
+    if "smiles" in entry:
+        mol = _from_smiles(name, entry["smiles"])
+        source = "smiles"
+        raw = entry["smiles"].encode()
+    else:
+        path = Path(entry["file"])
+        if not path.is_absolute():
+            path = Path(base_dir) / path
+        mol = _from_file(name, path, entry.get("charge", 0))
+        source = path.name
+        raw = path.read_bytes() if path.is_file() else b""
+    if len(Chem.GetMolFrags(mol)) > 1:
+        raise ChairqmError(f"{name}: the structure has {len(Chem.GetMolFrags(mol))} disconnected fragments: "
+                           "give one connected molecule (no salts or solvent)")
+    bad = sorted({a.GetSymbol() for a in mol.GetAtoms() if a.GetAtomicNum() > MAX_Z or a.GetAtomicNum() == 0})
+    if bad:
+        raise ChairqmError(f"{name}: element(s) {', '.join(bad)} are outside GFN2-xTB's parametrisation (H to Rn)")
+    charge = Chem.GetFormalCharge(mol)
+    if "charge" in entry and int(entry["charge"]) != charge and source != mol and "smiles" in entry:
+        raise ChairqmError(f"{name}: 'charge: {entry['charge']}' disagrees with the structure's formal charge {charge}")
+    if "charge" in entry:
+        charge = int(entry["charge"]) if "smiles" not in entry else charge
+    radicals = sum(a.GetNumRadicalElectrons() for a in mol.GetAtoms())
+    if radicals and "multiplicity" not in entry:
+        raise ChairqmError(f"{name}: the structure has {radicals} unpaired electron(s): add 'multiplicity: {radicals + 1}' "
+                           "if the radical is intended, or fix the hydrogens")
+    multiplicity = int(entry.get("multiplicity", radicals + 1))
+    nelec = sum(a.GetAtomicNum() for a in mol.GetAtoms()) - charge
+    if (nelec + multiplicity - 1) % 2:
+        raise ChairqmError(f"{name}: multiplicity {multiplicity} is impossible with {nelec} electrons")
+    rings = saturated_six_rings(mol)
+    if not rings:
+        six = [r for r in mol.GetRingInfo().AtomRings() if len(r) == 6]
+        why = ("its six-membered ring is aromatic or unsaturated" if six else "it has no six-membered ring")
+        raise ChairqmError(f"{name}: no saturated six-membered ring (C, N, O, S ring atoms, all sp3): {why}")
+    out = []
+    for suffix, iso in _stereo(mol, name, settings.get("enumerate_stereo", False)):
+        out.append(_describe(iso, name + suffix, rings, charge, multiplicity, source, raw, entry))
+    return out
+
+
+def _describe(mol, name, rings, charge, multiplicity, source, raw, entry) -> Perceived:
+    ring = _choose_ring(mol, rings)
+    ring_set = set(ring)
+    subs = []
+    for ra in ring:
+        atom = mol.GetAtomWithIdx(ra)
+        for nb in sorted(atom.GetNeighbors(), key=lambda a: a.GetIdx()):
+            j = nb.GetIdx()
+            if j in ring_set:
+                continue
+            if nb.GetAtomicNum() == 1 and atom.GetSymbol() != "N":
+                continue
+            group = _group_atoms(mol, ring_set, ra, j)
+            if group is None:
+                raise ChairqmError(f"{name}: ring atom {ra} is part of a fused, bridged or spiro ring system, "
+                                   "which chairqm does not analyse yet: give an isolated six-membered ring")
+            frag = _fragment(mol, ra, j, group)
+            gcharge = sum(mol.GetAtomWithIdx(k).GetFormalCharge() for k in group)
+            subs.append(Substituent(id=f"s{len(subs) + 1}", ring_atom=ra, first_atom=j, atoms=group,
+                                    fragment=frag, charge=gcharge))
+    notes = []
+    if len(rings) > 1:
+        notes.append(f"{len(rings)} saturated six-membered rings; analysing ring {ring}")
+    return Perceived(
+        name=name,
+        smiles=Chem.MolToSmiles(Chem.RemoveHs(mol)),
+        mapped_smiles=mapped_smiles(mol),
+        charge=charge, multiplicity=multiplicity,
+        ring=ring, rings=rings,
+        ring_elements=[mol.GetAtomWithIdx(i).GetSymbol() for i in ring],
+        substituents=subs,
+        stereo=_stereo_summary(Chem.Mol(mol)),
+        source=source,
+        input_hash=hashlib.sha256(raw).hexdigest()[:16],
+        note=entry.get("note", ""),
+        reference=bool(entry.get("reference", False)),
+        notes=notes,
+    )
+
+
+def _choose_ring(mol, rings):
+    """The analysed ring: the one carrying most heavy-atom substituents (ties: lowest atom indices)."""
+    def count(r):
+        s = set(r)
+        return sum(1 for i in r for nb in mol.GetAtomWithIdx(i).GetNeighbors()
+                   if nb.GetIdx() not in s and nb.GetAtomicNum() > 1)
+    return sorted(rings, key=lambda r: (-count(r), r))[0]
+
+
+def substituents_table(p: Perceived):
+    import pandas as pd
+    return pd.DataFrame([{"substituent": s.id, "ring_atom": s.ring_atom, "fragment": s.fragment}
+                         for s in p.substituents], columns=["substituent", "ring_atom", "fragment"])

@@ -1,0 +1,81 @@
+"""Which molecules a validated configuration asks for: the user's, expanded stereoisomers, and reference rings."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from .errors import ChairqmError
+from .molecule import Perceived, perceive
+
+REFERENCE_PREFIX = "ref-"
+
+
+@dataclass
+class Plan:
+    molecules: list[Perceived]        # user molecules, then automatic reference molecules
+    problems: list[str]               # one line per input problem (empty when the plan is usable)
+
+    def names(self) -> list[str]:
+        return [m.name for m in self.molecules]
+
+    def get(self, name: str) -> Perceived:
+        for m in self.molecules:
+            if m.name == name:
+                return m
+        raise ChairqmError(f"no molecule named {name!r} in this configuration")
+
+    def references_for(self, name: str) -> dict[str, str]:
+        """fragment -> reference molecule name, for the groups of `name` with no tabulated A-value."""
+        mol = self.get(name)
+        refs = {}
+        for m in self.molecules:
+            if m.reference and len(m.substituents) == 1:
+                refs[m.substituents[0].fragment] = m.name
+        return {s.fragment: refs[s.fragment] for s in mol.substituents if s.fragment in refs}
+
+
+def _slug(fragment: str) -> str:
+    import hashlib
+    import re
+    s = re.sub(r"[^A-Za-z0-9]+", "", fragment.replace("[*]", ""))[:24] or "group"
+    return f"{REFERENCE_PREFIX}{s}-{hashlib.sha1(fragment.encode()).hexdigest()[:6]}"
+
+
+def make_plan(cfg: dict) -> Plan:
+    """Perceive every molecule of a validated config; add reference rings for untabulated groups."""
+    settings = cfg.get("settings", {})
+    base = Path(cfg.get("_base_dir", "."))
+    mols, problems = [], []
+    for entry in cfg["molecules"]:
+        try:
+            mols.extend(perceive(entry, base, settings))
+        except ChairqmError as exc:
+            problems.append(str(exc))
+    names = [m.name for m in mols]
+    for n in sorted({n for n in names if names.count(n) > 1}):
+        problems.append(f"molecule name '{n}' occurs twice after stereoisomer expansion: rename one")
+    if settings.get("analysis", {}).get("reference_groups", True) and not problems:
+        mols.extend(_reference_molecules(mols, settings, problems))
+    return Plan(mols, problems)
+
+
+def _reference_molecules(mols, settings, problems):
+    try:
+        from . import additivity
+    except ImportError:          # the additivity module is optional during development of early stages
+        return []
+    have = {m.substituents[0].fragment for m in mols if len(m.substituents) == 1
+            and m.ring_elements == ["C"] * 6}
+    out = []
+    for frag in sorted({f for m in mols for f in additivity.needs_reference(m.substituents)}):
+        if frag in have or frag == "[*][H]":
+            continue
+        try:
+            smi = additivity.reference_smiles(frag)
+            for p in perceive({"name": _slug(frag), "smiles": smi, "reference": True,
+                               "note": f"reference ring for the group {frag}"}, ".", settings):
+                out.append(p)
+        except ChairqmError as exc:
+            problems.append(f"cannot build the reference ring for group {frag}: {exc}")
+    return out
