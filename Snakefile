@@ -45,5 +45,10 @@ wildcard_constraints:
     mol="|".join(sorted(map(lambda n: n.replace(".", r"\."), MOLECULES))) or "NONE",
 
 
-include: "workflows/rules/intake.smk"
 include: "workflows/rules/targets.smk"
+include: "workflows/rules/intake.smk"
+include: "workflows/rules/seeds.smk"
+include: "workflows/rules/minima.smk"
+include: "workflows/rules/thermo.smk"
+include: "workflows/rules/ensemble.smk"
+include: "workflows/rules/report.smk"

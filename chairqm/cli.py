@@ -105,9 +105,13 @@ def run_workflow(config_path, out, cores=2, until=None, extra=()) -> int:
         target = f"until_{until}"
     out = Path(out).resolve()
     out.mkdir(parents=True, exist_ok=True)
+    import time
+    from . import fileio
+    fileio.write_json(out / ".chairqm" / "run-start.json",
+                      {"epoch": time.time(), "iso": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "target": target})
     cmd = [sys.executable, "-m", "snakemake", target, "--snakefile", str(snakefile()), "--directory", str(out),
            "--config", f"chairqm_config={Path(config_path).resolve()}", "--cores", str(cores),
-           "--rerun-incomplete", *(["--printshellcmds"] if os.environ.get("CHAIRQM_VERBOSE") else ["--quiet", "rules"]),
+           "--rerun-incomplete", "--keep-going", *(["--printshellcmds"] if os.environ.get("CHAIRQM_VERBOSE") else ["--quiet", "rules"]),
            *extra]
     env = dict(os.environ)
     env.setdefault("OMP_NUM_THREADS", "1")

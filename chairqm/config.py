@@ -125,4 +125,6 @@ def load(path) -> dict:
         where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
         raise ChairqmError(f"{path}: not valid YAML{where}: {problem}") from None
-    return validate(cfg, base_dir=path.parent)
+    out = validate(cfg, base_dir=path.parent)
+    out["_config_path"] = str(path.resolve())
+    return out

@@ -1,6 +1,12 @@
-"""Unit conversions from one set of constants: CODATA 2018 as ase.units has them."""
+"""Unit conversions from one set of constants: CODATA 2018, built by ase.units.create_units("2018").
 
-from ase import units as _u
+(`ase.units` itself still defaults to CODATA 2014 in ASE 3.2x; every chairqm module takes its
+constants from here so the whole package uses one set.)"""
+
+from ase.units import create_units
+
+_u = create_units("2018")
+UNITS = _u
 
 HARTREE_EV = _u.Hartree                     # eV per hartree
 KCAL_PER_HARTREE = _u.Hartree / (_u.kcal / _u.mol)   # ≈ 627.5095

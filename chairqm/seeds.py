@@ -1,0 +1,781 @@
+"""Seeds: build both chairs, the twist-boats and the rotamers of a ring on purpose; label each by measuring it.
+
+How a seed is made
+------------------
+1. Ring templates (`TEMPLATES`): two chairs (Cremer–Pople theta = 0 and 180 deg) and the six twist-boats
+   of the pseudorotation cycle (theta = 90 deg, phi = 30 + k*60 deg), built by `ring.ring_from_pucker`
+   with bond lengths from RDKit's covalent radii. The amplitudes (CHAIR_Q, TWIST_Q) are those of
+   MMFF94-relaxed cyclohexane measured on this machine (0.553 and 0.717 Å), rounded.
+2. Skeleton: each ring atom's exocyclic neighbours are put on the template's two tetrahedral slots
+   (`ring.exocyclic_slots`), one "up" and one "down" (relative to the mean-plane normal). Which neighbour
+   goes up is fixed by the input's chirality tag where the ring atom is a stereocentre (checked with
+   RDKit's chirality-from-structure perception on the skeleton), arbitrary where the two neighbours are
+   graph-equivalent (two H), and enumerated where it is free (e.g. C1 of methylcyclohexane, a ring N
+   with an exocyclic H or alkyl: nitrogen inverts). One skeleton = one template x one choice vector.
+3. Skeletons related by a symmetry of the molecule (a stereo-preserving graph automorphism that maps
+   the ring onto itself, combined with a proper rotation, or an improper one when the automorphism maps
+   the molecule onto its mirror image) are merged before any rotamer work; the merge is recorded.
+4. Build: RDKit EmbedMolecule with the skeleton atoms fixed (coordMap, fixed random seed), then a
+   force-field relaxation (MMFF94, UFF where MMFF94 lacks parameters) with flat-bottomed restraints
+   that keep every ring torsion within RING_TORSION_TOL of the template, so the ring form survives.
+5. Rotamers: every rotatable bond of the substituents gets a grid of start torsions (`rotor_grid`),
+   the product is enumerated (at most `max_rotamer_starts` starts, an evenly spaced subset beyond
+   that), each start relaxed as in 4. Starts that reach the same structure, or one equivalent by
+   symmetry, are merged; of the rest, those more than `ff_window_kcal` above the lowest rotamer of the
+   same ring-level form, and those beyond `max_rotamers_per_form` (by energy), are screened. The window
+   and the cap act within one ring-level form, never across forms: an axial or twist-boat form is
+   never dropped for being high in energy.
+6. Every seed is re-measured (ring form, Q, theta, phi, orientations) and its stereo is checked against
+   the input from its 3D structure (RDKit AssignStereochemistryFrom3D); a mismatch marks it failed.
+
+The result is deterministic: fixed random seeds, fixed enumeration order, no threads, and coordinates
+rounded where they pass from numpy to RDKit and back (DECIMALS_*), because numpy's last bits may differ
+between processes.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from rdkit import Chem, RDLogger
+from rdkit.Chem import AllChem
+from rdkit.Chem import rdMolTransforms
+from rdkit.Geometry import Point3D
+from scipy.optimize import linear_sum_assignment
+
+from . import ring as ringgeo
+from .errors import ChairqmError
+
+RDLogger.DisableLog("rdApp.*")
+
+# ---- settings ---------------------------------------------------------------------------------------
+DEFAULTS = {
+    "twist_boats": True,            # build the six twist-boat templates as well as the two chairs
+    "max_rotamers_per_form": 12,    # keep at most this many rotamers per ring-level form (lowest FF energy)
+    "ff_window_kcal": 6.0,          # drop rotamers more than this above the best rotamer of the same form
+    "random_seed": 61453,           # RDKit embedding seed (fixed: same input, same seeds)
+    "max_rotamer_starts": 216,      # at most this many torsion-grid starts per ring-level form
+}
+SETTINGS_HELP = {
+    "twist_boats": "build the six twist-boats of the pseudorotation cycle (symmetry-equivalent ones merged)",
+    "max_rotamers_per_form": "cap on kept rotamers per ring-level form (chair or twist-boat with one "
+                             "orientation pattern), lowest force-field energy first",
+    "ff_window_kcal": "force-field energy window (kcal/mol) above the lowest rotamer of the same ring-level "
+                      "form; rotamers above it are screened",
+    "random_seed": "random seed of the RDKit embedding",
+    "max_rotamer_starts": "cap on torsion-grid starting points per ring-level form; beyond it an evenly "
+                          "spaced subset of the grid is used",
+}
+
+# ---- construction constants -------------------------------------------------------------------------
+CHAIR_Q = 0.55          # Å, template amplitude of the chairs (MMFF94 cyclohexane chair: 0.553 Å, measured)
+TWIST_Q = 0.72          # Å, template amplitude of the twist-boats (MMFF94 cyclohexane twist-boat: 0.717 Å)
+RING_TORSION_TOL = 10.0     # deg, flat-bottom half-width of the ring-torsion restraints
+RING_TORSION_K = 1.0e3      # force constant of those restraints (RDKit units, kcal/mol per rad^2)
+SKELETON_TOL = 0.02         # Å, max deviation for two skeletons to be symmetry-equivalent
+MERGE_RMSD = 0.10           # Å, all-atom RMSD under which two relaxed rotamers are the same structure
+MERGE_MAXDEV = 0.30         # Å, and the largest single-atom deviation
+MERGE_DE_KCAL = 0.10        # kcal/mol, energy difference beyond which two structures are never merged
+MAX_AUTOMORPHISMS = 5000    # RDKit substructure-match cap when enumerating symmetries
+# numpy's results can differ in the last bits between processes (memory alignment picks different SIMD
+# paths); coordinates are rounded at each hand-over so that the same input gives the same bytes.
+DECIMALS_TEMPLATE = 6       # Å, templates and skeletons
+DECIMALS_START = 5          # Å, embedded structures and rotamer starts handed to the force field
+DECIMALS_OUT = 6            # Å, final seed positions
+
+STATUSES = ("ok", "merged", "screened", "failed")
+TABLE_COLUMNS = ["seed", "ring_form", "q", "theta", "phi", "orientation", "ff_energy_kcal", "status",
+                 "template", "reason"]
+
+
+@dataclass(frozen=True)
+class Template:
+    """A ring template: name, intended form and Cremer–Pople (q [Å], theta, phi [deg])."""
+    name: str
+    form: str
+    q: float
+    theta: float
+    phi: float
+
+
+TEMPLATES = (
+    [Template("chair-1", "chair", CHAIR_Q, 0.0, 0.0), Template("chair-2", "chair", CHAIR_Q, 180.0, 0.0)]
+    + [Template(f"tb-{k + 1}", "twist-boat", TWIST_Q, 90.0, 30.0 + 60.0 * k) for k in range(6)]
+)
+
+
+@dataclass
+class Seed:
+    """One starting structure (or a record of why there is none). Labels are measured on `positions`."""
+    name: str
+    template: str
+    ring_form: str | None = None
+    q: float | None = None
+    theta: float | None = None
+    phi: float | None = None
+    orientation: str = ""
+    ff_energy_kcal: float | None = None
+    status: str = "ok"
+    reason: str = ""
+    positions: np.ndarray | None = None
+    equivalent_to: str | None = None      # for merged seeds: the kept seed it duplicates
+    forcefield: str | None = None         # 'MMFF94', 'UFF' or None (unrelaxed)
+
+    @property
+    def kept(self) -> bool:
+        return self.status == "ok"
+
+
+def check_settings(settings: dict | None) -> dict:
+    """Settings merged over DEFAULTS; unknown keys or bad values raise ChairqmError."""
+    out = dict(DEFAULTS)
+    for key, val in (settings or {}).items():
+        if key not in DEFAULTS:
+            raise ChairqmError(f"unknown seeds setting '{key}': use one of {', '.join(sorted(DEFAULTS))}")
+        out[key] = val
+    if not isinstance(out["twist_boats"], bool):
+        raise ChairqmError("seeds.twist_boats must be true or false")
+    for key in ("max_rotamers_per_form", "max_rotamer_starts"):
+        if isinstance(out[key], bool) or not isinstance(out[key], int) or out[key] < 1:
+            raise ChairqmError(f"seeds.{key} must be a positive integer, got {out[key]!r}")
+    if isinstance(out["random_seed"], bool) or not isinstance(out["random_seed"], int) or out["random_seed"] < 0:
+        raise ChairqmError(f"seeds.random_seed must be a non-negative integer, got {out['random_seed']!r}")
+    w = out["ff_window_kcal"]
+    if isinstance(w, bool) or not isinstance(w, (int, float)) or not w > 0:
+        raise ChairqmError(f"seeds.ff_window_kcal must be a positive number, got {w!r}")
+    out["ff_window_kcal"] = float(w)
+    return out
+
+
+# ---- small geometry helpers -------------------------------------------------------------------------
+def _fit(P, Q, improper=False):
+    """Rotation R (det +1, or -1 if improper) and shift minimising |R q + t - p| (Kabsch, Acta Cryst.
+    1976, A32, 922). Returns a function mapping coordinates of the Q frame into the P frame."""
+    pc, qc = P.mean(axis=0), Q.mean(axis=0)
+    H = (Q - qc).T @ (P - pc)
+    U, _, Vt = np.linalg.svd(H)
+    d = np.sign(np.linalg.det(Vt.T @ U.T)) or 1.0
+    R = Vt.T @ np.diag([1.0, 1.0, d * (-1.0 if improper else 1.0)]) @ U.T
+    return lambda X: (X - qc) @ R.T + pc
+
+
+def _bond_length(mol, i, j) -> float:
+    pt = Chem.GetPeriodicTable()
+    return pt.GetRcovalent(mol.GetAtomWithIdx(i).GetAtomicNum()) + pt.GetRcovalent(mol.GetAtomWithIdx(j).GetAtomicNum())
+
+
+# ---- the molecule-level context --------------------------------------------------------------------
+@dataclass
+class _Context:
+    mol: Chem.Mol
+    ring: list
+    subs: list
+    settings: dict
+    ranks: list
+    exo: list                       # per ring position: exocyclic neighbours, heavy first then by index
+    ref_tags: dict                  # atom -> chiral tag of the input (tetrahedral stereocentres)
+    ref_bonds: dict                 # bond idx -> stereo of the input (double bonds)
+    heavy: list                     # atom indices of the heavy-atom graph (RemoveHs order)
+    hydrogens: dict                 # heavy atom -> its hydrogens
+    maps: list = field(default_factory=list)    # (mapping array over all atoms' heavy part, improper)
+    forcefield: str | None = None
+    props: object = None
+
+
+def _prepare(mol, ring, substituents, settings) -> _Context:
+    if mol is None or mol.GetNumAtoms() == 0:
+        raise ChairqmError("no molecule to seed")
+    if any(a.GetNumImplicitHs() for a in mol.GetAtoms()):
+        raise ChairqmError("the molecule must carry explicit hydrogens (Chem.AddHs) before seeding")
+    ring = [int(i) for i in ring]
+    if len(ring) != 6 or len(set(ring)) != 6:
+        raise ChairqmError(f"the analysed ring must have six distinct atoms, got {ring}")
+    for k in range(6):
+        if mol.GetBondBetweenAtoms(ring[k], ring[(k + 1) % 6]) is None:
+            raise ChairqmError(f"ring atoms {ring[k]} and {ring[(k + 1) % 6]} are not bonded: "
+                               "give the ring atoms in order around the ring")
+    work, ref_tags, ref_bonds = _reference_stereo(mol)
+    work.RemoveAllConformers()
+    for info in Chem.FindPotentialStereo(work):
+        if info.type == Chem.StereoType.Atom_Tetrahedral and info.centeredOn in ring \
+                and info.specified == Chem.StereoSpecified.Unspecified:
+            raise ChairqmError(f"stereo of ring atom {info.centeredOn} is not specified: give the relative "
+                               "configuration in the input (e.g. [C@H] / [C@@H])")
+    ranks = list(Chem.CanonicalRankAtoms(work, breakTies=False, includeChirality=False))
+    ring_set = set(ring)
+    exo = []
+    for a in ring:
+        nbs = [n.GetIdx() for n in work.GetAtomWithIdx(a).GetNeighbors() if n.GetIdx() not in ring_set]
+        nbs.sort(key=lambda i: (work.GetAtomWithIdx(i).GetAtomicNum() == 1, i))
+        if len(nbs) > 2:
+            raise ChairqmError(f"ring atom {a} has {len(nbs)} exocyclic neighbours; at most two are possible")
+        exo.append(nbs)
+    heavy = [a.GetIdx() for a in work.GetAtoms() if a.GetAtomicNum() > 1]
+    hydrogens = {i: [n.GetIdx() for n in work.GetAtomWithIdx(i).GetNeighbors() if n.GetAtomicNum() == 1]
+                 for i in heavy}
+    ctx = _Context(mol=work, ring=ring, subs=list(substituents), settings=settings, ranks=ranks, exo=exo,
+                   ref_tags=ref_tags, ref_bonds=ref_bonds, heavy=heavy, hydrogens=hydrogens)
+    ctx.maps = _symmetries(work, heavy, ring)
+    if AllChem.MMFFHasAllMoleculeParams(work):
+        ctx.forcefield = "MMFF94"
+        ctx.props = AllChem.MMFFGetMoleculeProperties(work)
+        ctx.props.SetMMFFVerbosity(0)
+    elif AllChem.UFFHasAllMoleculeParams(work):
+        ctx.forcefield = "UFF"
+    return ctx
+
+
+def _symmetries(work, heavy, ring):
+    """Stereo-preserving heavy-atom automorphisms (improper=False) and mirror mappings (improper=True)
+    that map the analysed ring onto itself, as integer arrays new_index[old] over all atoms (H: -1)."""
+    tagged = Chem.Mol(work)
+    for a in tagged.GetAtoms():
+        a.SetIntProp("_cq", a.GetIdx())
+    hmol = Chem.RemoveHs(tagged, sanitize=False)
+    idx = [a.GetIntProp("_cq") for a in hmol.GetAtoms()]
+    mirror = Chem.Mol(hmol)
+    for a in mirror.GetAtoms():
+        t = a.GetChiralTag()
+        if t == Chem.ChiralType.CHI_TETRAHEDRAL_CW:
+            a.SetChiralTag(Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+        elif t == Chem.ChiralType.CHI_TETRAHEDRAL_CCW:
+            a.SetChiralTag(Chem.ChiralType.CHI_TETRAHEDRAL_CW)
+    ring_set = set(ring)
+    nh = [len([n for n in work.GetAtomWithIdx(i).GetNeighbors() if n.GetAtomicNum() == 1])
+          for i in range(work.GetNumAtoms())]
+    out, seen = [], set()
+    for improper, query in ((False, hmol), (True, mirror)):
+        for match in hmol.GetSubstructMatches(query, useChirality=True, uniquify=False,
+                                              maxMatches=MAX_AUTOMORPHISMS):
+            m = np.full(work.GetNumAtoms(), -1, dtype=int)
+            for qi, ti in enumerate(match):
+                m[idx[qi]] = idx[ti]
+            if {int(m[i]) for i in ring} != ring_set:
+                continue
+            if any(nh[i] != nh[m[i]] for i in idx):
+                continue
+            key = (improper, tuple(m.tolist()))
+            if key not in seen:
+                seen.add(key)
+                out.append((m, improper))
+    return out
+
+
+def _equivalent(ctx, XA, XB, atoms_heavy, h_of, tol_max, tol_rmsd=None, maps=None):
+    """Is structure B the same as A up to a symmetry of the molecule? Returns (bool, improper flag).
+
+    For each mapping m (A atom i sits where B atom m[i] sits) the heavy atoms are superposed (Kabsch,
+    proper or improper), hydrogens of each heavy atom are paired with those of its image by the
+    Hungarian method (scipy), and the deviations are compared with the tolerances.
+    """
+    atoms_heavy = np.asarray(atoms_heavy)
+    for m, improper in (maps if maps is not None else ctx.maps):
+        img = m[atoms_heavy]
+        T = _fit(XA[atoms_heavy], XB[img], improper)
+        YB = T(XB)
+        dev = list(np.linalg.norm(YB[img] - XA[atoms_heavy], axis=1))
+        if max(dev) > tol_max:
+            continue
+        ok = True
+        for i in atoms_heavy:
+            ha, hb = h_of.get(int(i), []), h_of.get(int(m[i]), [])
+            if len(ha) != len(hb):
+                ok = False
+                break
+            if not ha:
+                continue
+            D = np.linalg.norm(XA[ha][:, None, :] - YB[hb][None, :, :], axis=2)
+            r, c = linear_sum_assignment(D)
+            dev.extend(D[r, c].tolist())
+        if not ok or max(dev) > tol_max:
+            continue
+        if tol_rmsd is not None and math.sqrt(float(np.mean(np.square(dev)))) > tol_rmsd:
+            continue
+        return True, improper
+    return False, False
+
+
+# ---- skeletons --------------------------------------------------------------------------------------
+def _template_ring(ctx, tpl: Template) -> np.ndarray:
+    lengths = [_bond_length(ctx.mol, ctx.ring[k], ctx.ring[(k + 1) % 6]) for k in range(6)]
+    return np.round(ringgeo.ring_from_pucker(tpl.q, tpl.theta, tpl.phi, lengths), DECIMALS_TEMPLATE) + 0.0
+
+
+def _skeleton(ctx, X, choice) -> dict:
+    """Positions of ring atoms and their exocyclic neighbours; choice[k] = 1 swaps up/down at position k."""
+    pos = {}
+    for k, a in enumerate(ctx.ring):
+        pos[a] = X[k]
+        d1, d2 = ringgeo.exocyclic_slots(X, list(range(6)), k)
+        up, down = (d1, d2) if d1[2] >= d2[2] else (d2, d1)
+        slots = (down, up) if choice[k] else (up, down)
+        for e, d in zip(ctx.exo[k], slots):
+            pos[e] = np.round(X[k] + _bond_length(ctx.mol, a, e) * d, DECIMALS_TEMPLATE)
+    return pos
+
+
+def _ring_tags(ctx, pos) -> dict:
+    """Chiral tags RDKit perceives at the ring atoms from skeleton positions."""
+    tmp = Chem.Mol(ctx.mol)
+    conf = Chem.Conformer(tmp.GetNumAtoms())
+    for i, p in pos.items():
+        conf.SetAtomPosition(int(i), Point3D(*map(float, p)))
+    conf.Set3D(True)
+    tmp.RemoveAllConformers()
+    cid = tmp.AddConformer(conf, assignId=True)
+    Chem.AssignAtomChiralTagsFromStructure(tmp, confId=cid, replaceExistingTags=True)
+    return {a: tmp.GetAtomWithIdx(a).GetChiralTag() for a in ctx.ring}
+
+
+def _choices(ctx):
+    """(free positions, stereo-fixed positions) of the ring: where up/down of the exocyclic atoms is a
+    conformational choice, and where the input's chirality decides it."""
+    free, fixed = [], []
+    for k, a in enumerate(ctx.ring):
+        e = ctx.exo[k]
+        if not e:
+            continue
+        if a in ctx.ref_tags:
+            fixed.append(k)
+        elif len(e) == 2 and ctx.ranks[e[0]] == ctx.ranks[e[1]]:
+            continue
+        else:
+            free.append(k)
+    return free, fixed
+
+
+def _fix_stereo(ctx, X, choice, fixed):
+    """Flip the choice at stereo-fixed positions until the skeleton has the input's tags there."""
+    choice = list(choice)
+    tags = _ring_tags(ctx, _skeleton(ctx, X, choice))
+    for k in fixed:
+        if tags[ctx.ring[k]] != ctx.ref_tags[ctx.ring[k]]:
+            choice[k] = 1
+    tags = _ring_tags(ctx, _skeleton(ctx, X, choice))
+    bad = [ctx.ring[k] for k in fixed if tags[ctx.ring[k]] != ctx.ref_tags[ctx.ring[k]]]
+    return choice, bad
+
+
+# ---- building ---------------------------------------------------------------------------------------
+def _forcefield(ctx, conf_id, targets=None):
+    m = ctx.mol
+    if ctx.forcefield == "MMFF94":
+        ff = AllChem.MMFFGetMoleculeForceField(m, ctx.props, confId=conf_id)
+        add = ff.MMFFAddTorsionConstraint if ff is not None else None
+    elif ctx.forcefield == "UFF":
+        ff = AllChem.UFFGetMoleculeForceField(m, confId=conf_id)
+        add = ff.UFFAddTorsionConstraint if ff is not None else None
+    else:
+        return None
+    if ff is None:
+        return None
+    if targets is not None:
+        r = ctx.ring
+        for j in range(6):
+            t = float(targets[j])
+            add(r[j], r[(j + 1) % 6], r[(j + 2) % 6], r[(j + 3) % 6], False,
+                t - RING_TORSION_TOL, t + RING_TORSION_TOL, RING_TORSION_K)
+    ff.Initialize()
+    return ff
+
+
+def _set_positions(ctx, X):
+    ctx.mol.RemoveAllConformers()
+    conf = Chem.Conformer(ctx.mol.GetNumAtoms())
+    conf.SetPositions(np.asarray(X, dtype=float))
+    conf.Set3D(True)
+    return ctx.mol.AddConformer(conf, assignId=True)
+
+
+def _relax(ctx, X, targets):
+    """Force-field relaxation with ring-torsion restraints; returns (positions, energy kcal/mol or None, note)."""
+    if ctx.forcefield is None:
+        return np.array(X, dtype=float), None, "no force-field parameters (MMFF94, UFF): unrelaxed embedding"
+    cid = _set_positions(ctx, X)
+    ff = _forcefield(ctx, cid, targets)
+    if ff is None:
+        return np.array(X, dtype=float), None, f"{ctx.forcefield} set-up failed: unrelaxed embedding"
+    note = ""
+    for _ in range(10):
+        if ff.Minimize(maxIts=1000) == 0:
+            break
+    else:
+        note = f"{ctx.forcefield} relaxation not converged"
+    Y = np.array(ctx.mol.GetConformer(cid).GetPositions())
+    free = _forcefield(ctx, cid, None)
+    energy = float(free.CalcEnergy(Y.ravel().tolist()))
+    return Y, energy, note
+
+
+def _reference_stereo(mol):
+    work = Chem.Mol(mol)
+    Chem.AssignStereochemistry(work, cleanIt=True, force=True)
+    tags = {a.GetIdx(): a.GetChiralTag() for a in work.GetAtoms()
+            if a.GetChiralTag() in (Chem.ChiralType.CHI_TETRAHEDRAL_CW, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)}
+    bonds = {b.GetIdx(): b.GetStereo() for b in work.GetBonds()
+             if b.GetStereo() in (Chem.BondStereo.STEREOE, Chem.BondStereo.STEREOZ)}
+    return work, tags, bonds
+
+
+def _mismatch(mol, tags, bonds, X) -> list:
+    tmp = Chem.Mol(mol)
+    tmp.RemoveAllConformers()
+    conf = Chem.Conformer(tmp.GetNumAtoms())
+    conf.SetPositions(np.asarray(X, dtype=float))
+    conf.Set3D(True)
+    cid = tmp.AddConformer(conf, assignId=True)
+    Chem.AssignStereochemistryFrom3D(tmp, confId=cid)
+    bad = [f"atom {i}" for i, t in tags.items() if tmp.GetAtomWithIdx(i).GetChiralTag() != t]
+    bad += [f"bond {b}" for b, st in bonds.items() if tmp.GetBondWithIdx(b).GetStereo() != st]
+    return bad
+
+
+def stereo_mismatch(mol, positions) -> list[str]:
+    """Stereo elements (tetrahedral atoms, double bonds) whose configuration perceived from `positions`
+    (RDKit AssignStereochemistryFrom3D) differs from the one `mol` carries; empty if all agree."""
+    work, tags, bonds = _reference_stereo(mol)
+    return _mismatch(work, tags, bonds, positions)
+
+
+def _stereo_mismatch(ctx, X) -> list:
+    return _mismatch(ctx.mol, ctx.ref_tags, ctx.ref_bonds, X)
+
+
+def _embed(ctx, pos, seed):
+    coord = {int(i): Point3D(*map(float, p)) for i, p in pos.items()}
+    attempts = [coord, {i: p for i, p in coord.items()
+                        if ctx.mol.GetAtomWithIdx(i).GetAtomicNum() > 1 or i in ctx.ring}]
+    for cmap in attempts:
+        for extra in range(3):
+            cid = AllChem.EmbedMolecule(ctx.mol, coordMap=cmap, randomSeed=seed + extra, useRandomCoords=True,
+                                        enforceChirality=True, maxAttempts=50)
+            if cid < 0:
+                continue
+            X = np.array(ctx.mol.GetConformer(cid).GetPositions())
+            keys = sorted(cmap)
+            P = np.array([pos[i] for i in keys])
+            T = _fit(P, X[keys])
+            X = np.round(T(X), DECIMALS_START)
+            if np.max(np.linalg.norm(X[keys] - P, axis=1)) < 0.05:
+                return X
+    return None
+
+
+def _measure_into(ctx, seed: Seed, X, intended_form):
+    meas = ringgeo.measure(X, ctx.ring, ctx.subs)
+    seed.ring_form, seed.q, seed.theta, seed.phi = meas["ring_form"], meas["q"], meas["theta"], meas["phi"]
+    seed.orientation = meas["orientation"]
+    seed.positions = X
+    notes = []
+    if seed.ring_form != intended_form:
+        notes.append(f"ring relaxed to {seed.ring_form} from a {intended_form} template")
+    return notes
+
+
+def _frame(ctx, X, ring_xyz):
+    """Put a structure into the template frame: ring atoms superposed on the template ring (proper fit)."""
+    T = _fit(ring_xyz, X[ctx.ring])
+    return np.round(T(X), DECIMALS_OUT) + 0.0
+
+
+# ---- rotors -----------------------------------------------------------------------------------------
+def rotor_grid(mol, a: int, b: int) -> list[float]:
+    """Start torsions (deg) for a rotatable bond a-b, by hybridisation (common practice: staggered
+    minima of sp3-sp3 bonds, six-fold starts for sp3-sp2, planar s-cis/s-trans starts for sp2-sp2;
+    offsets keep starts off exact symmetric saddle points)."""
+    sp2 = (Chem.HybridizationType.SP2,)
+    ha = mol.GetAtomWithIdx(a).GetHybridization() in sp2 or mol.GetAtomWithIdx(a).GetIsAromatic()
+    hb = mol.GetAtomWithIdx(b).GetHybridization() in sp2 or mol.GetAtomWithIdx(b).GetIsAromatic()
+    if ha and hb:
+        return [10.0, 190.0]
+    if ha or hb:
+        return [15.0, 75.0, 135.0, 195.0, 255.0, 315.0]
+    return [60.0, 180.0, 300.0]
+
+
+def rotatable_bonds(mol, ring, substituents, ranks=None) -> list[tuple[int, int, int, int]]:
+    """Rotatable bonds of the substituents as dihedral quadruples (i, a, b, j), a nearer the ring.
+
+    A bond counts if it is single, not in a ring, has a neighbour on both sides, neither end is sp
+    (linear), and neither end is a symmetric top (three graph-equivalent outer neighbours: CH3, CF3,
+    C(CH3)3), whose rotation gives no new conformer.
+    """
+    if ranks is None:
+        ranks = list(Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False))
+    ring = list(ring)
+    group = set()
+    for s in substituents:
+        group.update(int(i) for i in s.atoms)
+    if not group:
+        return []
+    dm = Chem.GetDistanceMatrix(mol)
+    dist = dm[:, ring].min(axis=1)
+    out = []
+    for bond in mol.GetBonds():
+        if bond.GetBondType() != Chem.BondType.SINGLE or bond.IsInRing():
+            continue
+        a, b = bond.GetBeginAtomIdx(), bond.GetEndAtomIdx()
+        if dist[a] > dist[b]:
+            a, b = b, a
+        if b not in group or (a not in group and a not in ring):
+            continue
+        A, B = mol.GetAtomWithIdx(a), mol.GetAtomWithIdx(b)
+        if Chem.HybridizationType.SP in (A.GetHybridization(), B.GetHybridization()):
+            continue
+        na = [n.GetIdx() for n in A.GetNeighbors() if n.GetIdx() != b]
+        nb = [n.GetIdx() for n in B.GetNeighbors() if n.GetIdx() != a]
+        if not na or not nb:
+            continue
+        if len(nb) == 3 and len({ranks[i] for i in nb}) == 1:
+            continue
+        if len(na) == 3 and len({ranks[i] for i in na}) == 1:
+            continue
+
+        def pick(ns):
+            heavy = [i for i in ns if mol.GetAtomWithIdx(i).GetAtomicNum() > 1]
+            return min(heavy) if heavy else min(ns)
+
+        out.append((pick(na), a, b, pick(nb)))
+    out.sort(key=lambda t: (dist[t[1]], t[1], t[2]))
+    return out
+
+
+# ---- the public entry points ------------------------------------------------------------------------
+def build_seeds(mol, ring, substituents, settings=None) -> list[Seed]:
+    """Every seed of one molecule — kept, merged, screened and failed — in a fixed order.
+
+    `mol`: RDKit Mol with explicit H and stereo; `ring`: six atom indices in ring order; `substituents`:
+    objects with id, ring_atom, first_atom, atoms (see chairqm.molecule.Substituent); `settings`: the
+    seeds block (see DEFAULTS). Positions are in `mol` atom order, Å, in the template frame (ring
+    centroid at the origin, mean plane ~ xy).
+    """
+    settings = check_settings(settings)
+    ctx = _prepare(mol, ring, substituents, settings)
+    seed0 = settings["random_seed"]
+    free, fixed = _choices(ctx)
+    combos = list(itertools.product((0, 1), repeat=len(free)))
+
+    templates = [t for t in TEMPLATES if t.form == "chair"]
+    skipped = []
+    if settings["twist_boats"]:
+        templates += [t for t in TEMPLATES if t.form == "twist-boat"]
+    else:
+        skipped = [t for t in TEMPLATES if t.form == "twist-boat"]
+
+    # ring-level candidates in a fixed order: chairs first, within a form choice-vector-major
+    cands = []
+    for form in ("chair", "twist-boat"):
+        tpls = [t for t in templates if t.form == form]
+        for ci, combo in enumerate(combos):
+            for tpl in tpls:
+                name = tpl.name if ci == 0 else f"{tpl.name}-v{ci + 1}"
+                cands.append((name, tpl, combo))
+
+    ring_xyz = {t.name: _template_ring(ctx, t) for t in templates}
+    skel_heavy = sorted(a for a in ctx.ring) + sorted(
+        e for ex in ctx.exo for e in ex if ctx.mol.GetAtomWithIdx(e).GetAtomicNum() > 1)
+    skel_h = {a: [e for e in ex if ctx.mol.GetAtomWithIdx(e).GetAtomicNum() == 1]
+              for a, ex in zip(ctx.ring, ctx.exo)}
+    # symmetries restricted to the skeleton (unique restrictions only)
+    skel_maps, seen = [], set()
+    for m, imp in ctx.maps:
+        key = (imp, tuple(int(m[i]) for i in skel_heavy))
+        if key not in seen:
+            seen.add(key)
+            skel_maps.append((m, imp))
+
+    n_atoms = ctx.mol.GetNumAtoms()
+    out: list[Seed] = []
+    kept_skeletons = []          # (name, form, skeleton array)
+    rotors = rotatable_bonds(ctx.mol, ctx.ring, ctx.subs, ctx.ranks)
+
+    for name, tpl, combo in cands:
+        X = ring_xyz[tpl.name]
+        choice = [0] * 6
+        for k, c in zip(free, combo):
+            choice[k] = c
+        choice, bad = _fix_stereo(ctx, X, choice, fixed)
+        seed = Seed(name=name, template=tpl.name, forcefield=ctx.forcefield)
+        if bad:
+            seed.status, seed.reason = "failed", (f"template {tpl.name} cannot carry the input configuration "
+                                                  f"at ring atoms {bad}")
+            out.append(seed)
+            continue
+        pos = _skeleton(ctx, X, choice)
+        S = np.zeros((n_atoms, 3))
+        for i, p in pos.items():
+            S[i] = p
+        merged_with = None
+        for kname, kform, KS in kept_skeletons:
+            if kform != tpl.form:
+                continue
+            same, improper = _equivalent(ctx, KS, S, skel_heavy, skel_h, SKELETON_TOL, maps=skel_maps)
+            if same:
+                merged_with = (kname, improper)
+                break
+
+        Xb = _embed(ctx, pos, seed0)
+        if Xb is None:
+            if merged_with is not None:
+                seed.status, seed.equivalent_to = "merged", merged_with[0]
+                seed.reason = (f"symmetry-equivalent of {merged_with[0]}; not built (RDKit embedding with the "
+                               f"ring fixed at template {tpl.name} failed)")
+            else:
+                seed.status = "failed"
+                seed.reason = (f"RDKit embedding with the ring fixed at template {tpl.name} failed for this "
+                               "substitution pattern")
+            out.append(seed)
+            continue
+        targets = np.round(ringgeo.ring_torsions(X), 4)
+        Xr, energy, note = _relax(ctx, Xb, targets)
+        Xr = _frame(ctx, Xr, X)
+        notes = _measure_into(ctx, seed, Xr, tpl.form)
+        if note:
+            notes.append(note)
+        seed.ff_energy_kcal = energy
+        mismatch = _stereo_mismatch(ctx, Xr)
+        if mismatch:
+            seed.status = "failed"
+            seed.reason = "; ".join([f"stereo from 3D differs from the input at {', '.join(mismatch)}"] + notes)
+            out.append(seed)
+            continue
+        if merged_with is not None:
+            kname, improper = merged_with
+            seed.status = "merged"
+            seed.equivalent_to = kname
+            how = "mirror image" if improper else "rotation and atom permutation"
+            seed.reason = "; ".join([f"symmetry-equivalent of {kname} ({how})"] + notes)
+            out.append(seed)
+            continue
+        kept_skeletons.append((name, tpl.form, S))
+        if not rotors:
+            seed.reason = "; ".join(notes)
+            out.append(seed)
+            continue
+        out.extend(_rotamers(ctx, seed, Xr, targets, X, rotors, tpl.form))
+
+    for tpl in skipped:
+        out.append(Seed(name=tpl.name, template=tpl.name, status="screened",
+                        reason="twist-boats switched off (seeds.twist_boats = false)"))
+    return out
+
+
+def _rotamers(ctx, base: Seed, Xbase, targets, ring_xyz, rotors, form) -> list[Seed]:
+    settings = ctx.settings
+    grids = [rotor_grid(ctx.mol, a, b) for (_, a, b, _) in rotors]
+    total = int(np.prod([len(g) for g in grids]))
+    cap = settings["max_rotamer_starts"]
+    if total > cap:
+        pick = sorted(set(np.round(np.linspace(0, total - 1, cap)).astype(int).tolist()))
+    else:
+        pick = list(range(total))
+    all_combos = itertools.product(*grids)
+    chosen = set(pick)
+    starts = [c for n, c in enumerate(all_combos) if n in chosen]
+    width = max(2, len(str(len(starts))))
+    subset = f" (evenly spaced subset of {total} grid points)" if total > cap else ""
+    seeds: list[Seed] = []
+    kept: list[Seed] = []
+    h_of = {i: hs for i, hs in ctx.hydrogens.items()}
+    heavy = np.asarray(ctx.heavy)
+    for n, values in enumerate(starts):
+        s = Seed(name=f"{base.name}-r{n + 1:0{width}d}", template=base.template, forcefield=ctx.forcefield)
+        cid = _set_positions(ctx, Xbase)
+        conf = ctx.mol.GetConformer(cid)
+        for (i, a, b, j), v in zip(rotors, values):
+            rdMolTransforms.SetDihedralDeg(conf, i, a, b, j, float(v))
+        X0 = np.round(np.array(conf.GetPositions()), DECIMALS_START)
+        Xr, energy, note = _relax(ctx, X0, targets)
+        Xr = _frame(ctx, Xr, ring_xyz)
+        notes = [f"start {n + 1} of {len(starts)}{subset}: torsions "
+                 + ",".join(f"{v:g}" for v in values)]
+        notes += _measure_into(ctx, s, Xr, form)
+        if note:
+            notes.append(note)
+        s.ff_energy_kcal = energy
+        mismatch = _stereo_mismatch(ctx, Xr)
+        if mismatch:
+            s.status = "failed"
+            s.reason = "; ".join([f"stereo from 3D differs from the input at {', '.join(mismatch)}"] + notes)
+            seeds.append(s)
+            continue
+        for k in kept:
+            if (energy is not None and k.ff_energy_kcal is not None
+                    and abs(energy - k.ff_energy_kcal) > MERGE_DE_KCAL):
+                continue
+            same, improper = _equivalent(ctx, k.positions, Xr, heavy, h_of, MERGE_MAXDEV, MERGE_RMSD)
+            if same:
+                s.status, s.equivalent_to = "merged", k.name
+                s.reason = "; ".join([f"same structure as {k.name} after relaxation"
+                                      + (" (mirror image)" if improper else "")] + notes)
+                break
+        if s.status != "merged":
+            kept.append(s)
+            s.reason = "; ".join(notes)
+        seeds.append(s)
+
+    # energy window and cap, within this ring-level form
+    with_e = [s for s in kept if s.ff_energy_kcal is not None]
+    if with_e:
+        emin = min(s.ff_energy_kcal for s in with_e)
+        for s in with_e:
+            de = s.ff_energy_kcal - emin
+            if de > settings["ff_window_kcal"]:
+                s.status = "screened"
+                s.reason = (f"force-field energy {de:.2f} kcal/mol above the best rotamer of this form "
+                            f"exceeds the window of {settings['ff_window_kcal']:g} kcal/mol; " + s.reason)
+    alive = [s for s in kept if s.status == "ok"]
+    order = sorted(alive, key=lambda s: (s.ff_energy_kcal if s.ff_energy_kcal is not None else math.inf, s.name))
+    for s in order[settings["max_rotamers_per_form"]:]:
+        s.status = "screened"
+        s.reason = (f"beyond the cap of {settings['max_rotamers_per_form']} rotamers per form "
+                    f"(seeds.max_rotamers_per_form); " + s.reason)
+    return seeds
+
+
+def seeds_table(seeds):
+    """The seeds table (pandas DataFrame) with TABLE_COLUMNS, one row per seed including non-kept ones."""
+    import pandas as pd
+
+    def r(x, nd):
+        return None if x is None else round(float(x), nd)
+
+    rows = [{"seed": s.name, "ring_form": s.ring_form, "q": r(s.q, 4), "theta": r(s.theta, 2),
+             "phi": None if s.phi is None else r(s.phi, 2) % 360.0, "orientation": s.orientation,
+             "ff_energy_kcal": r(s.ff_energy_kcal, 4),
+             "status": s.status, "template": s.template, "reason": s.reason} for s in seeds]
+    return pd.DataFrame(rows, columns=TABLE_COLUMNS)
+
+
+def xyz_text(seed: Seed, mol) -> str:
+    """Extended-XYZ text of one seed (ASE reads the comment line's key=value pairs)."""
+    syms = [a.GetSymbol() for a in mol.GetAtoms()]
+    X = np.asarray(seed.positions, dtype=float)
+    if X.shape != (len(syms), 3):
+        raise ValueError(f"seed {seed.name}: positions do not match the molecule's {len(syms)} atoms")
+    e = "nan" if seed.ff_energy_kcal is None else f"{seed.ff_energy_kcal:.6f}"
+    comment = (f'Properties=species:S:1:pos:R:3 seed={seed.name} template={seed.template} '
+               f'ring_form={seed.ring_form} q={seed.q:.4f} theta={seed.theta:.2f} phi={seed.phi:.2f} '
+               f'orientation="{seed.orientation}" ff_energy_kcal={e} forcefield={seed.forcefield or "none"} '
+               f'pbc="F F F"')
+    lines = [str(len(syms)), comment]
+    for s, (x, y, z) in zip(syms, X):
+        # +0.0 turns -0.0 into 0.0 so the text never depends on the sign of a zero
+        lines.append(f"{s:<2s} {x + 0.0:15.8f} {y + 0.0:15.8f} {z + 0.0:15.8f}")
+    return "\n".join(lines) + "\n"
+
+
+def write_seeds(seeds, folder, mol):
+    """Write `<name>.xyz` (extended XYZ) for every kept seed into `folder`; return the seeds table."""
+    from .fileio import write_text
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    for s in seeds:
+        if s.status == "ok" and s.positions is not None:
+            write_text(folder / f"{s.name}.xyz", xyz_text(s, mol))
+    return seeds_table(seeds)

@@ -1,0 +1,206 @@
+"""Unique minima: merge duplicate conformers symmetry-aware, find mirror-image pairs, assign degeneracy.
+
+Two optimised conformers are the same minimum when BOTH
+  - their RMSD after optimal superposition, minimised over the molecule's symmetry-equivalent atom
+    permutations (graph automorphisms; RDKit ``rdMolAlign.GetBestRMS``), is at most ``rmsd_tol`` Å, and
+  - their energies agree within ``energy_tol_kcal``.
+The RMSD runs over the heavy atoms plus hydrogens on heteroatoms (O–H, N–H, S–H ...).  Hydrogens on
+carbon are left out: in a minimum their positions follow from the carbon frame (staggered), so they tell
+no minima apart, while each CH2 pair and CH3 triple multiplies the permutations to try (2 and 6 each).
+Hydrogens on heteroatoms stay in because O–H/N–H rotamers are distinct minima that only they tell apart.
+
+Mirror images: the reflected geometry (x → −x) of conformer B is compared with conformer A the same way.
+A conformer is a *chiral conformer* when it does not match its own reflection.
+
+Degeneracy rule (what the thermochemistry multiplies each unique minimum's Boltzmann weight by):
+  - Chiral molecule (its isomeric SMILES differs from its mirror's, checked on the RDKit Mol): mirror
+    images are the other enantiomer, a different molecule, never counted: degeneracy 1 for every minimum,
+    no mirror search.  (Stereo must be specified in the Mol; an unspecified centre counts as achiral.)
+  - Achiral molecule, achiral conformer: degeneracy 1.
+  - Achiral molecule, chiral conformer: it has an enantiomeric partner of the same energy.  If the
+    partner is among the minima, the two are merged into one unique minimum (the lower-energy one
+    represents; ``mirror_of`` names the partner) with degeneracy 2; if not, it stands alone with
+    degeneracy 2 and ``mirror_of`` None.  Either way the pair is counted exactly twice, never four times.
+Duplicates are never counted: a duplicate only adds its name to ``duplicates``.  Pass only conformers
+that optimised successfully (status ok).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from chairqm.units import KCAL_PER_HARTREE
+
+
+@dataclass
+class Record:
+    """One optimised conformer as :func:`unique_minima` reads it (dicts with these keys work too)."""
+
+    name: str
+    positions: np.ndarray            # (N, 3) Å, atom order of the RDKit Mol
+    energy_hartree: float
+
+
+@dataclass
+class UniqueMinimum:
+    name: str                        # representative: the lowest-energy member
+    energy_hartree: float            # the representative's energy
+    members: list = field(default_factory=list)          # every record name it stands for (name first)
+    duplicates: list = field(default_factory=list)       # names of duplicates of the representative
+    mirror_of: str | None = None     # representative name of the merged mirror-image partner
+    mirror_members: list = field(default_factory=list)   # the partner's names (its duplicates included)
+    chiral_conformer: bool = False   # not superimposable on its own mirror image
+    degeneracy: int = 1              # see the module docstring
+
+
+def _get(rec, key):
+    return rec[key] if isinstance(rec, dict) else getattr(rec, key)
+
+
+def is_chiral_molecule(mol) -> bool:
+    """True if the molecule differs from its mirror image (canonical isomeric SMILES of the Mol and of a
+    copy with every tetrahedral centre inverted; double-bond E/Z is unchanged by reflection)."""
+    from rdkit import Chem
+
+    CT = Chem.ChiralType
+    base = Chem.RemoveHs(Chem.Mol(mol), sanitize=False)
+    mirror = Chem.Mol(base)
+    flipped = False
+    for atom in mirror.GetAtoms():
+        tag = atom.GetChiralTag()
+        if tag == CT.CHI_TETRAHEDRAL_CW:
+            atom.SetChiralTag(CT.CHI_TETRAHEDRAL_CCW)
+            flipped = True
+        elif tag == CT.CHI_TETRAHEDRAL_CCW:
+            atom.SetChiralTag(CT.CHI_TETRAHEDRAL_CW)
+            flipped = True
+    if not flipped:
+        return False
+    return Chem.MolToSmiles(base) != Chem.MolToSmiles(mirror)
+
+
+def comparison_atoms(mol) -> list[int]:
+    """Indices of the atoms the RMSD runs over: heavy atoms and hydrogens not bonded to carbon."""
+    keep = []
+    for atom in mol.GetAtoms():
+        if atom.GetAtomicNum() != 1:
+            keep.append(atom.GetIdx())
+        elif not any(n.GetAtomicNum() == 6 for n in atom.GetNeighbors()):
+            keep.append(atom.GetIdx())
+    return keep
+
+
+def _reduced(mol, keep):
+    from rdkit import Chem
+
+    rw = Chem.RWMol(Chem.Mol(mol))
+    rw.RemoveAllConformers()
+    for idx in sorted(set(range(mol.GetNumAtoms())) - set(keep), reverse=True):
+        rw.RemoveAtom(idx)
+    red = rw.GetMol()
+    red.UpdatePropertyCache(strict=False)
+    return red
+
+
+def _without_conformers(mol):
+    from rdkit import Chem
+
+    m = Chem.Mol(mol)
+    m.RemoveAllConformers()
+    return m
+
+
+class _Comparer:
+    """Symmetry-aware best RMSD between geometries of one molecule (over `comparison_atoms`)."""
+
+    def __init__(self, mol, all_atoms: bool = False):
+        self.keep = list(range(mol.GetNumAtoms())) if all_atoms else comparison_atoms(mol)
+        self.red = _without_conformers(mol) if all_atoms else _reduced(mol, self.keep)
+
+    def _with(self, pos):
+        from rdkit import Chem
+        from rdkit.Geometry import Point3D
+
+        m = Chem.Mol(self.red)
+        conf = Chem.Conformer(m.GetNumAtoms())
+        for k, (x, y, z) in enumerate(np.asarray(pos, dtype=float)[self.keep]):
+            conf.SetAtomPosition(k, Point3D(float(x), float(y), float(z)))
+        conf.Set3D(True)
+        m.AddConformer(conf, assignId=True)
+        return m
+
+    def rmsd(self, pos_a, pos_b, reflect_b: bool = False) -> float:
+        from rdkit.Chem import rdMolAlign
+
+        b = np.array(pos_b, dtype=float)
+        if reflect_b:
+            b[:, 0] *= -1.0
+        return float(rdMolAlign.GetBestRMS(self._with(b), self._with(pos_a)))
+
+
+def best_rmsd(mol, pos_a, pos_b, reflect_b: bool = False, all_atoms: bool = False) -> float:
+    """Best RMSD (Å) of geometry B (reflected if asked) onto A over symmetry-equivalent permutations."""
+    return _Comparer(mol, all_atoms).rmsd(pos_a, pos_b, reflect_b)
+
+
+def unique_minima(mol, records, rmsd_tol: float = 0.125, energy_tol_kcal: float = 0.1,
+                  all_atoms: bool = False) -> list[UniqueMinimum]:
+    """Group optimised conformers into unique minima (see the module docstring for the rules).
+
+    mol: RDKit Mol with Hs and the input's stereo, atom order as in the records.  records: items (objects
+    or dicts) with `name`, `positions` (N, 3) Å and `energy_hartree`.  Returns the unique minima sorted
+    by energy.  all_atoms=True compares over every atom instead of heavy atoms + heteroatom H.
+    """
+    recs = sorted(records, key=lambda r: float(_get(r, "energy_hartree")))
+    if not recs:
+        return []
+    n = mol.GetNumAtoms()
+    for r in recs:
+        if np.asarray(_get(r, "positions")).shape != (n, 3):
+            raise ValueError(f"record {_get(r, 'name')!r}: positions shape "
+                             f"{np.asarray(_get(r, 'positions')).shape}, molecule has {n} atoms")
+    cmp = _Comparer(mol, all_atoms)
+    e_tol = energy_tol_kcal / KCAL_PER_HARTREE
+
+    groups: list[dict] = []   # {rep, names}
+    for r in recs:
+        e, pos = float(_get(r, "energy_hartree")), np.asarray(_get(r, "positions"), dtype=float)
+        for g in groups:
+            if abs(e - g["e"]) <= e_tol and cmp.rmsd(g["pos"], pos) <= rmsd_tol:
+                g["dups"].append(_get(r, "name"))
+                break
+        else:
+            groups.append({"name": _get(r, "name"), "e": e, "pos": pos, "dups": []})
+
+    chiral_mol = is_chiral_molecule(mol)
+    out: list[UniqueMinimum] = []
+    if chiral_mol:
+        for g in groups:
+            out.append(UniqueMinimum(name=g["name"], energy_hartree=g["e"], members=[g["name"], *g["dups"]],
+                                     duplicates=list(g["dups"]), chiral_conformer=True, degeneracy=1))
+        return out
+
+    for g in groups:
+        g["chiral"] = cmp.rmsd(g["pos"], g["pos"], reflect_b=True) > rmsd_tol
+    used = set()
+    for i, g in enumerate(groups):
+        if i in used:
+            continue
+        um = UniqueMinimum(name=g["name"], energy_hartree=g["e"], members=[g["name"], *g["dups"]],
+                           duplicates=list(g["dups"]), chiral_conformer=g["chiral"],
+                           degeneracy=2 if g["chiral"] else 1)
+        if g["chiral"]:
+            for j in range(i + 1, len(groups)):
+                h = groups[j]
+                if j in used or not h["chiral"] or abs(h["e"] - g["e"]) > e_tol:
+                    continue
+                if cmp.rmsd(g["pos"], h["pos"], reflect_b=True) <= rmsd_tol:
+                    used.add(j)
+                    um.mirror_of = h["name"]
+                    um.mirror_members = [h["name"], *h["dups"]]
+                    um.members += um.mirror_members
+                    break
+        out.append(um)
+    return out

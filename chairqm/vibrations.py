@@ -1,0 +1,527 @@
+"""Vibrations of a minimum: a cached finite-difference Hessian, projected frequencies and a proof of minimum.
+
+Three jobs, each a plain function:
+
+- :func:`hessian` (and :func:`hessian_run`, which also returns its accounting): the Cartesian Hessian by
+  central finite differences of analytic gradients, 6N gradient calls, with a per-conformer cache folder
+  that survives an interrupted run and refuses to mix geometries.
+- :func:`frequencies`: harmonic frequencies in cm⁻¹ and Cartesian normal modes, with translations and
+  rotations projected out of the mass-weighted Hessian.
+- :func:`prove_minimum`: an imaginary mode beyond a threshold is followed downhill (displace both ways,
+  re-optimise, keep the lower), and the Hessian recomputed, within a bounded number of rounds.
+
+Units: positions Å, Hessian eV/Å², masses u (ase.data), energies hartree in records.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import math
+import os
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from ase import Atoms
+from ase.units import create_units
+from scipy.linalg import null_space
+
+from chairqm.errors import ChairqmError
+from chairqm.units import HARTREE_EV, KCAL_PER_HARTREE
+
+log = logging.getLogger(__name__)
+
+#: Finite-difference step in Å.  Central differences have a truncation error ∝ step² (the anharmonic
+#: third-derivative term) and a noise error ∝ (gradient noise)/step.  Measured with GFN2-xTB (tblite,
+#: default accuracy 1.0) on chair cyclohexane and equatorial methylcyclohexane: steps of 0.0025, 0.005 and
+#: 0.01 Å give the same frequencies to ≤ 0.6 cm⁻¹ (lowest modes 232 and 149 cm⁻¹) and ≤ 1.5 cm⁻¹ near
+#: 3000 cm⁻¹, while the Hessian's asymmetry before symmetrisation (a noise measure) grows as the step
+#: shrinks: 2.2e-2, 6.7e-3, 5.6e-3 eV/Å² for cyclohexane.  0.005 Å is in that flat region, clear of the
+#: noise; it is ≈ 0.01 bohr, a common choice for numerical Hessians (common practice).
+DEFAULT_STEP = 0.005
+
+#: Positions are rounded to this many decimals (Å) before hashing the cache key; 1e-5 Å is far below any
+#: chemically meaningful change but above float noise from a write/read round trip of a geometry.
+KEY_DECIMALS = 5
+
+_CACHE_FORMAT = 1
+_KEY_FILE = "key.json"
+_RUN_FILE = "run.json"
+
+# CODATA 2018 (plain ase.units is CODATA 2014 in ASE 3.2x; the project's convention is 2018)
+units = create_units("2018")
+
+# ħω in eV from sqrt(eigenvalue in eV/(Å² u)), as ase.vibrations does it
+_HBAR_OMEGA_EV = units._hbar * units.m / math.sqrt(units._e * units._amu)
+
+
+# ------------------------------------------------------------------------------------------- the cache
+def calculator_tag(calc) -> str:
+    """A stable text describing a calculator's settings (class and parameters, without 'verbosity').
+
+    Part of the Hessian cache key, so forces from another method, solvent or charge are never reused.
+    """
+    cls = type(calc)
+    inner = getattr(calc, "inner", None)  # chairqm.engine.CountingCalculator wraps the engine's calculator
+    if inner is not None:
+        calc, cls = inner, type(inner)
+    params = dict(getattr(calc, "parameters", {}) or {})
+    params.pop("verbosity", None)
+    return f"{cls.__module__}.{cls.__qualname__}:" + json.dumps(params, sort_keys=True, default=repr)
+
+
+def geometry_key(atoms: Atoms, step: float, calc_tag: str = "") -> str:
+    """SHA-256 of (atomic numbers, positions rounded to KEY_DECIMALS Å, initial charges and magnetic
+    moments, step, calculator tag): the identity of a Hessian's displacement set."""
+    pos = np.round(np.asarray(atoms.positions, dtype=float), KEY_DECIMALS) + 0.0  # +0.0 turns -0.0 into 0.0
+    payload = {
+        "format": _CACHE_FORMAT,
+        "numbers": [int(z) for z in atoms.numbers],
+        "positions": [f"{x:.{KEY_DECIMALS}f}" for x in pos.ravel()],
+        "charge": round(float(np.sum(atoms.get_initial_charges())), 6),
+        "magmom": round(float(np.sum(atoms.get_initial_magnetic_moments())), 6),
+        "step": f"{float(step):.6g}",
+        "calc": calc_tag,
+    }
+    return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
+
+
+def _disp_name(atom: int, axis: int, sign: int) -> str:
+    return f"disp-{atom:04d}-{'xyz'[axis]}{'+' if sign > 0 else '-'}.npz"
+
+
+def _atomic_write_npz(path: Path, **arrays) -> None:
+    """Write to a temporary name, then os.replace: an interrupted process leaves no half-written file.
+    No fsync (not needed against an interrupted process): after a power cut a damaged file fails to load,
+    and :func:`_load_forces` then treats it as missing and the displacement is recomputed."""
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.part")
+    try:
+        with open(tmp, "wb") as fh:
+            np.savez(fh, **arrays)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+
+
+def _atomic_write_json(path: Path, obj) -> None:
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.part")
+    try:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            json.dump(obj, fh, indent=1, sort_keys=True)
+            fh.write("\n")
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+
+
+def _clear_displacements(folder: Path) -> int:
+    """Delete this module's displacement files (and stale temporaries) in `folder`; nothing else."""
+    n = 0
+    for p in folder.glob("disp-*.npz"):
+        p.unlink()
+        n += 1
+    for p in folder.glob(".disp-*.part"):
+        p.unlink()
+    return n
+
+
+def _prepare_cache(folder: Path, key: str, natoms: int, step: float, tag: str) -> int:
+    """Make `folder` hold displacements for `key` only.  Returns the number of foreign files cleared."""
+    folder.mkdir(parents=True, exist_ok=True)
+    key_file = folder / _KEY_FILE
+    cleared = 0
+    old = None
+    if key_file.exists():
+        try:
+            old = json.loads(key_file.read_text(encoding="utf-8")).get("key")
+        except (OSError, ValueError):
+            old = None
+    if old != key:
+        cleared = _clear_displacements(folder)
+        if cleared:
+            log.warning("Hessian cache %s held %d displacement(s) of another geometry or setting; cleared",
+                        folder, cleared)
+        _atomic_write_json(key_file, {"key": key, "natoms": natoms, "step": step, "calc": tag,
+                                      "format": _CACHE_FORMAT})
+    return cleared
+
+
+def _load_forces(path: Path, key: str, natoms: int):
+    """Forces from a displacement file, or None if it is missing, unreadable or of another key."""
+    try:
+        with np.load(path, allow_pickle=False) as data:
+            if str(data["key"]) != key:
+                return None
+            f = np.array(data["forces"], dtype=float)
+    except (OSError, ValueError, KeyError, EOFError):
+        return None
+    if f.shape != (natoms, 3) or not np.all(np.isfinite(f)):
+        return None
+    return f
+
+
+# ------------------------------------------------------------------------------------------- the Hessian
+@dataclass
+class HessianRun:
+    """A Hessian and how it was made."""
+
+    hessian: np.ndarray          # (3N, 3N) eV/Å², symmetrised
+    step: float                  # Å
+    gradient_calls: int          # gradients computed in this call (0 if all came from the cache)
+    reused: int                  # displacements read from the cache
+    engine_seconds: float        # wall time inside the calculator in this call
+    wall_seconds: float
+    cache_dir: str
+    key: str
+    cleared: int = 0             # foreign displacement files removed from the cache folder
+    asymmetry: float = 0.0       # max |H - Hᵀ| / 2 before symmetrisation, eV/Å² (a noise measure)
+
+    def to_record(self) -> dict:
+        return {"step_angstrom": self.step, "gradient_calls": self.gradient_calls, "reused": self.reused,
+                "engine_seconds": round(self.engine_seconds, 4), "wall_seconds": round(self.wall_seconds, 4),
+                "cache_dir": self.cache_dir, "key": self.key, "cleared": self.cleared,
+                "asymmetry_ev_per_a2": self.asymmetry}
+
+
+def hessian_run(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_tag: str | None = None) -> HessianRun:
+    """Cartesian Hessian by central differences of analytic gradients, with a resumable cache.
+
+    H[3i+a, :] = -(F(x + h e_ia) - F(x - h e_ia)) / (2h) for each atom i and axis a (6N gradient calls;
+    the central-difference formula, e.g. Wilson, Decius, Cross, *Molecular Vibrations*, 1955, and any
+    numerical-analysis text), then H ← (H + Hᵀ)/2.  h = `step` Å (see DEFAULT_STEP for its choice).
+
+    The cache folder `cache_dir` belongs to one geometry: ``key.json`` holds the hash of the geometry
+    (positions rounded to 1e-5 Å, atomic numbers, charge, spin), the step and the calculator's settings;
+    each displacement's forces are written atomically (temporary file, then os.replace) to
+    ``disp-IIII-{x,y,z}{+,-}.npz`` as soon as they are computed, each file also carrying the key.  A
+    rerun reuses the finished displacements; a folder holding another key's files is cleared first (a
+    warning is logged) and a file with a foreign key is never read, so forces of two geometries never mix.
+
+    `calc` is an ASE calculator or a zero-argument factory returning a new one.  With a factory every
+    displacement gets a new calculator, so its SCF starts from the engine's own guess whatever was
+    computed before: a resumed Hessian is then bitwise identical to an uninterrupted one.  With a
+    calculator instance, ``calc.reset()`` is called before each displacement, but engines that keep the
+    last wavefunction as the next guess across a reset (tblite with its default cache_api=True) make each
+    displacement depend on the previous one within the SCF convergence (measured: ≤ 0.015 eV/Å² in H,
+    < 0.1 cm⁻¹ in ν for cyclohexane at tblite's default accuracy).  Creating a tblite calculator costs
+    nothing measurable against its SCF (9.5 vs 9.3 ms per cyclohexane gradient), so prefer a factory.
+    `calc_tag` overrides the calculator description in the key (default :func:`calculator_tag`).
+    """
+    t0 = time.perf_counter()
+    step = float(step)
+    if not step > 0:
+        raise ChairqmError(f"finite-difference step must be positive, got {step} Å")
+    natoms = len(atoms)
+    if natoms == 0:
+        raise ChairqmError("cannot compute a Hessian for an empty structure")
+    factory = calc if (callable(calc) and not hasattr(calc, "get_forces")) else None
+    if factory is not None:
+        calc = factory()
+    tag = calculator_tag(calc) if calc_tag is None else str(calc_tag)
+    key = geometry_key(atoms, step, tag)
+    folder = Path(cache_dir)
+    cleared = _prepare_cache(folder, key, natoms, step, tag)
+
+    base = np.array(atoms.positions, dtype=float)
+    work = Atoms(atoms.numbers, positions=base.copy())
+    work.set_initial_charges(atoms.get_initial_charges())
+    work.set_initial_magnetic_moments(atoms.get_initial_magnetic_moments())
+
+    hess = np.zeros((3 * natoms, 3 * natoms))
+    calls = reused = 0
+    engine = 0.0
+    for i in range(natoms):
+        for a in range(3):
+            pair = []
+            for sign in (+1, -1):
+                path = folder / _disp_name(i, a, sign)
+                f = _load_forces(path, key, natoms)
+                if f is None:
+                    pos = base.copy()
+                    pos[i, a] += sign * step
+                    work.positions = pos
+                    if factory is not None and calls > 0:
+                        calc = factory()
+                    elif factory is None:
+                        calc.reset()
+                    work.calc = calc
+                    s = time.perf_counter()
+                    f = np.array(work.get_forces(), dtype=float)
+                    engine += time.perf_counter() - s
+                    calls += 1
+                    if f.shape != (natoms, 3) or not np.all(np.isfinite(f)):
+                        raise RuntimeError(f"engine returned non-finite forces at displacement {path.name}")
+                    _atomic_write_npz(path, forces=f, key=np.array(key))
+                else:
+                    reused += 1
+                pair.append(f)
+            hess[3 * i + a] = -(pair[0] - pair[1]).ravel() / (2.0 * step)
+    asym = float(np.max(np.abs(hess - hess.T)) / 2.0)
+    hess = 0.5 * (hess + hess.T)
+    run = HessianRun(hessian=hess, step=step, gradient_calls=calls, reused=reused, engine_seconds=engine,
+                     wall_seconds=time.perf_counter() - t0, cache_dir=str(folder), key=key, cleared=cleared,
+                     asymmetry=asym)
+    _atomic_write_json(folder / _RUN_FILE, run.to_record())
+    return run
+
+
+def hessian(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_tag: str | None = None) -> np.ndarray:
+    """The symmetrised Cartesian Hessian (3N, 3N) in eV/Å²; see :func:`hessian_run` (which also returns
+    gradient_calls and engine seconds; both are recorded in ``cache_dir/run.json``)."""
+    return hessian_run(atoms, calc, cache_dir, step=step, calc_tag=calc_tag).hessian
+
+
+# ------------------------------------------------------------------------------------------ frequencies
+def external_basis(atoms: Atoms, tol: float = 1e-6) -> np.ndarray:
+    """Orthonormal basis (3N, k) of mass-weighted translations and infinitesimal rotations about the
+    centre of mass, k = 6 (nonlinear), 5 (linear) or 3 (one atom).
+
+    Translations: √m_i e_α; rotations: √m_i (e_α × (r_i − R_com)), the Eckart frame vectors (Eckart,
+    Phys. Rev. 1935, 47, 552; Miller, Handy, Adams, J. Chem. Phys. 1980, 72, 99).  Orthonormalised by SVD;
+    vectors with singular value below `tol` relative to the largest (the missing rotation of a linear
+    molecule) are dropped.
+    """
+    m = np.asarray(atoms.get_masses(), dtype=float)
+    r = np.asarray(atoms.positions, dtype=float)
+    r = r - (m[:, None] * r).sum(0) / m.sum()
+    sq = np.sqrt(m)
+    vecs = []
+    for a in range(3):
+        t = np.zeros_like(r)
+        t[:, a] = 1.0
+        vecs.append((sq[:, None] * t).ravel())
+    for a in range(3):
+        e = np.zeros(3)
+        e[a] = 1.0
+        vecs.append((sq[:, None] * np.cross(e, r)).ravel())
+    d = np.array(vecs).T
+    u, s, _ = np.linalg.svd(d, full_matrices=False)
+    keep = s > tol * s.max()
+    return u[:, keep]
+
+
+def frequencies(hess: np.ndarray, atoms: Atoms) -> tuple[np.ndarray, np.ndarray]:
+    """Harmonic frequencies (cm⁻¹) and Cartesian normal modes of a Hessian (eV/Å²).
+
+    Mass-weight, F = M^-½ H M^-½ (u = ase.data atomic masses of `atoms`); build an orthonormal basis D of
+    the complement of the translations and rotations (:func:`external_basis`), diagonalise DᵀFD
+    (Wilson, Decius, Cross 1955; the projection as in Miller, Handy, Adams, J. Chem. Phys. 1980, 72, 99);
+    ħω = ħ·√λ with λ in eV/(Å² u), converted to cm⁻¹ with ase.units.  Negative eigenvalues are returned
+    as negative frequencies (imaginary modes: -|ν|).
+
+    Returns (freqs, modes): freqs sorted ascending, length 3N-6 (3N-5 if linear, 0 for one atom); modes
+    of shape (n, N, 3), each the Cartesian displacement M^-½ D v normalised to unit length (Å).
+    """
+    hess = np.asarray(hess, dtype=float)
+    n3 = 3 * len(atoms)
+    if hess.shape != (n3, n3):
+        raise ChairqmError(f"Hessian shape {hess.shape} does not match {len(atoms)} atoms (expected {(n3, n3)})")
+    m = np.repeat(np.asarray(atoms.get_masses(), dtype=float), 3)
+    inv_sq = 1.0 / np.sqrt(m)
+    fm = inv_sq[:, None] * 0.5 * (hess + hess.T) * inv_sq[None, :]
+    ext = external_basis(atoms)
+    internal = null_space(ext.T)           # orthonormal complement of the external space, (3N, 3N-k)
+    fi = internal.T @ fm @ internal
+    lam, vec = np.linalg.eigh(0.5 * (fi + fi.T))
+    freqs = np.sign(lam) * _HBAR_OMEGA_EV * np.sqrt(np.abs(lam)) / units.invcm
+    cart = inv_sq[:, None] * (internal @ vec)
+    cart /= np.linalg.norm(cart, axis=0)[None, :]
+    modes = cart.T.reshape(len(lam), len(atoms), 3)
+    return freqs, modes
+
+
+# --------------------------------------------------------------------------------------- minimum proof
+#: Imaginary-frequency threshold in cm⁻¹ beyond which a mode is followed.  Below it an imaginary value is
+#: numerical noise rather than a saddle: with GFN2-xTB gradients at default SCF accuracy, step 0.005 Å
+#: and geometries converged to fmax 0.005–0.01 eV/Å, the six translations/rotations of the unprojected
+#: Hessian come out at up to 4–9 cm⁻¹ (measured on toluene, ethyl- and tert-butylcyclohexane), a measure
+#: of how far noise and a not exactly stationary point move a flat mode; the saddles this project must
+#: catch lie far above it (boat cyclohexane 104i cm⁻¹, eclipsed rotamers > 100i cm⁻¹).  15i cm⁻¹
+#: (0.04 kcal/mol as hν) is also a common practice cut-off.  Residual imaginary modes below it are
+#: reported (MinimumProof.small_imaginary); chairqm.thermo.thermochemistry counts them as real with |ν|.
+DEFAULT_IMAGINARY_THRESHOLD = 15.0
+
+#: Largest single-atom displacement (Å) along a followed mode, both ways.  0.3 Å clears a saddle's
+#: quadratic region for ring and torsion modes (boat → twist-boat moves ring atoms by ≈ 0.3–0.5 Å) without
+#: breaking bonds; the optimiser then finishes the descent.
+DEFAULT_DISPLACEMENT = 0.3
+
+
+@dataclass
+class MinimumProof:
+    """The outcome of :func:`prove_minimum`.
+
+    status: 'minimum' (no mode beyond the threshold), 'saddle-remains' (rounds exhausted with imaginary
+    modes left), 'failed' (an engine or optimiser error; `history` says where).
+    """
+
+    atoms: Atoms
+    freqs: np.ndarray
+    modes: np.ndarray
+    rounds: int
+    history: list = field(default_factory=list)
+    n_imaginary: int = 0
+    small_imaginary: list = field(default_factory=list)   # |ν| (cm⁻¹) of residual imaginary modes below threshold
+    status: str = "failed"
+    energy_hartree: float = math.nan
+    threshold_cm1: float = DEFAULT_IMAGINARY_THRESHOLD
+    gradient_calls: int = 0          # Hessian gradients computed (optimiser calls are counted by the optimiser)
+    engine_seconds: float = 0.0      # engine time inside the Hessians
+    hessians: list = field(default_factory=list)   # HessianRun.to_record() of every round
+
+    @property
+    def lowest_frequency_cm1(self) -> float:
+        return float(self.freqs[0]) if len(self.freqs) else math.nan
+
+    def to_record(self) -> dict:
+        return {"status": self.status, "rounds": self.rounds, "history": list(self.history),
+                "n_imaginary": self.n_imaginary, "small_imaginary_cm1": [float(x) for x in self.small_imaginary],
+                "threshold_cm1": self.threshold_cm1, "energy_hartree": self.energy_hartree,
+                "lowest_frequency_cm1": self.lowest_frequency_cm1,
+                "frequencies_cm1": [float(x) for x in self.freqs],
+                "gradient_calls": self.gradient_calls, "engine_seconds": round(self.engine_seconds, 4),
+                "hessians": list(self.hessians)}
+
+
+def _single_point_hartree(atoms: Atoms, calc) -> float:
+    a = atoms.copy()
+    a.calc = calc
+    return float(a.get_potential_energy()) / HARTREE_EV
+
+
+def _fmt_imag(values) -> str:
+    return ", ".join(f"{abs(v):.0f}i" for v in values)
+
+
+def prove_minimum(atoms: Atoms, calc_factory, reoptimize, cache_dir,
+                  threshold_cm1: float = DEFAULT_IMAGINARY_THRESHOLD, max_rounds: int = 3,
+                  displacement: float = DEFAULT_DISPLACEMENT, step: float = DEFAULT_STEP,
+                  energy_hartree: float | None = None) -> MinimumProof:
+    """Show that `atoms` (an optimised geometry) is a minimum, or follow its imaginary modes to one.
+
+    Round 0 computes the Hessian and frequencies (:func:`hessian_run`, :func:`frequencies`) in
+    ``cache_dir/round0``.  While a mode below -`threshold_cm1` remains and fewer than `max_rounds` rounds
+    have been made, the most negative mode is followed: the geometry is displaced both ways along it
+    (largest atom displacement `displacement` Å), each is re-optimised with ``reoptimize(atoms) ->
+    (atoms, energy_hartree)``, the lower is kept, and the Hessian is recomputed in ``cache_dir/roundK``.
+    If neither side lowered the energy by at least 1e-4 kcal/mol, the next round doubles the displacement.
+
+    calc_factory() -> a new ASE calculator (the same settings as the optimisation).  `energy_hartree`
+    of the input geometry may be passed to save a single point.  Errors of the engine or optimiser give
+    status 'failed' with the message in `history` (a ChairqmError, which the user must fix, is raised).
+    The threshold: see DEFAULT_IMAGINARY_THRESHOLD; residual imaginary modes with |ν| below it are
+    listed in `small_imaginary` and counted as real by chairqm.thermo.thermochemistry (documented there).
+    """
+    threshold = float(threshold_cm1)
+    if not threshold >= 0:
+        raise ChairqmError(f"imaginary-frequency threshold must be ≥ 0 cm-1, got {threshold_cm1}")
+    if int(max_rounds) < 0:
+        raise ChairqmError(f"max_rounds must be ≥ 0, got {max_rounds}")
+    cache_dir = Path(cache_dir)
+    current = Atoms(atoms.numbers, positions=np.array(atoms.positions, dtype=float), info=dict(atoms.info))
+    current.set_initial_charges(atoms.get_initial_charges())
+    current.set_initial_magnetic_moments(atoms.get_initial_magnetic_moments())
+    proof = MinimumProof(atoms=current, freqs=np.zeros(0), modes=np.zeros((0, len(atoms), 3)), rounds=0,
+                         threshold_cm1=threshold)
+    history = proof.history
+
+    def analyse(geom: Atoms, rnd: int):
+        run = hessian_run(geom, calc_factory, cache_dir / f"round{rnd}", step=step)
+        proof.gradient_calls += run.gradient_calls
+        proof.engine_seconds += run.engine_seconds
+        proof.hessians.append(run.to_record())
+        return frequencies(run.hessian, geom)
+
+    try:
+        energy = _single_point_hartree(current, calc_factory()) if energy_hartree is None else float(energy_hartree)
+        freqs, modes = analyse(current, 0)
+    except ChairqmError:
+        raise
+    except Exception as exc:  # engine failure: report it for this conformer, do not stop the others
+        history.append(f"round 0: Hessian failed: {type(exc).__name__}: {exc}")
+        proof.status = "failed"
+        return proof
+
+    scale = float(displacement)
+    rnd = 0
+    while True:
+        imag = freqs[freqs < -threshold]
+        if len(imag) == 0:
+            small = freqs[freqs < 0]
+            note = f"; residual {_fmt_imag(small)} cm-1 below the {threshold:g} cm-1 threshold" if len(small) else ""
+            history.append(f"round {rnd}: no imaginary mode beyond {threshold:g}i cm-1 "
+                           f"(lowest {freqs[0]:.1f} cm-1){note}" if len(freqs) else f"round {rnd}: no vibrations")
+            proof.status = "minimum"
+            break
+        if rnd >= int(max_rounds):
+            history.append(f"round {rnd}: {len(imag)} imaginary mode(s) {_fmt_imag(imag)} cm-1 remain after "
+                           f"{rnd} round(s); giving up")
+            proof.status = "saddle-remains"
+            break
+        rnd += 1
+        k = int(np.argmin(freqs))
+        mode = modes[k] / np.linalg.norm(modes[k], axis=1).max() * scale
+        tried = []
+        try:
+            for sign in (+1, -1):
+                trial = current.copy()
+                trial.positions = current.positions + sign * mode
+                opt_atoms, e = reoptimize(trial)
+                tried.append((float(e), sign, opt_atoms))
+        except ChairqmError:
+            raise
+        except Exception as exc:
+            history.append(f"round {rnd}: re-optimisation along the {abs(freqs[k]):.0f}i cm-1 mode failed: "
+                           f"{type(exc).__name__}: {exc}")
+            proof.status = "failed"
+            break
+        finite = [t for t in tried if math.isfinite(t[0])]
+        if not finite:
+            history.append(f"round {rnd}: both re-optimisations along the {abs(freqs[k]):.0f}i cm-1 mode "
+                           f"returned no energy")
+            proof.status = "failed"
+            break
+        e_new, sign, opt_atoms = min(finite, key=lambda t: t[0])
+        de = (e_new - energy) * KCAL_PER_HARTREE
+        others = ", ".join(f"{'+' if s > 0 else '-'}: {(ee - energy) * KCAL_PER_HARTREE:+.3f}" for ee, s, _ in tried)
+        verdict = f"E lowered by {-de:.3f} kcal/mol" if de < 0 else f"E not lowered ({de:+.3f} kcal/mol)"
+        history.append(f"round {rnd}: {len(imag)} imaginary mode(s) {_fmt_imag(imag)} cm-1; displaced ±{scale:.2f} Å "
+                       f"along the {abs(freqs[k]):.0f}i mode, re-optimised both (ΔE kcal/mol {others}); kept "
+                       f"{'+' if sign > 0 else '-'}, {verdict}")
+        if de > -1e-4:
+            scale *= 2.0
+            history.append(f"round {rnd}: no descent; the next displacement is doubled to {scale:.2f} Å")
+        new = Atoms(opt_atoms.numbers, positions=np.array(opt_atoms.positions, dtype=float), info=dict(current.info))
+        new.set_initial_charges(current.get_initial_charges())
+        new.set_initial_magnetic_moments(current.get_initial_magnetic_moments())
+        try:
+            new_freqs, new_modes = analyse(new, rnd)
+        except ChairqmError:
+            raise
+        except Exception as exc:
+            # keep the last geometry whose frequencies are known, so atoms/freqs/energy stay consistent
+            history.append(f"round {rnd}: Hessian of the re-optimised geometry failed: {type(exc).__name__}: "
+                           f"{exc}; the record keeps the previous geometry")
+            proof.status = "failed"
+            break
+        current, energy, freqs, modes = new, e_new, new_freqs, new_modes
+
+    proof.atoms = current
+    proof.freqs = freqs
+    proof.modes = modes
+    proof.rounds = rnd
+    proof.energy_hartree = float(energy)
+    proof.n_imaginary = int(np.sum(freqs < -threshold))
+    proof.small_imaginary = [float(abs(v)) for v in freqs if -threshold <= v < 0]
+    return proof

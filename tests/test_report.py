@@ -1,0 +1,364 @@
+"""Run report: the page builds from a run folder, shows what a chemist needs, loads nothing external, is deterministic.
+
+The fixture folder's numbers are layout data only (made up, roughly realistic); no test checks a value.
+"""
+
+import copy
+import html
+import json
+import math
+import re
+import time
+from html.parser import HTMLParser
+
+import pytest
+
+from chairqm import fileio
+from chairqm.molecule import perceive
+from chairqm.report import depiction_svg, write_report
+
+R_KCAL = 0.0019872    # kcal/(mol K), only to make the fixture's made-up populations sum to one
+TEMPS = [298.15, 350.0]
+CURVE_T = [float(t) for t in range(150, 451, 25)]
+
+# name, SMILES, note, reference, families [(ring_form, {sid: orientation}, G_rel kcal, n_conformers)],
+# additive (source, dg, reason, terms), flag reason (None: not flagged), failure reason, calibration
+MOLECULES = [
+    dict(name="methyl-chx", smiles="CC1CCCCC1", note="simplest test ring",
+         families=[("chair", {"s1": "equatorial"}, 0.0, 2), ("chair", {"s1": "axial"}, 1.8, 1),
+                   ("twist-boat", {"s1": "pseudo-equatorial"}, 5.6, 2)],
+         additive=("tabulated", 1.74, "", [["s1 axial: A([*]C)", 1.74]]), flag=None,
+         calibration=(1.70, 1.35, 2.05)),
+    dict(name="cis-tBu-Me", smiles="CC(C)(C)[C@H]1CC[C@@H](C)CC1",
+         note="<script>alert('x')</script> & co",
+         families=[("chair", {"s1": "equatorial", "s2": "axial"}, 0.0, 3),
+                   ("chair", {"s1": "axial", "s2": "equatorial"}, 3.3, 2),
+                   ("twist-boat", {"s1": "pseudo-equatorial", "s2": "pseudo-axial"}, 4.1, 4)],
+         additive=("tabulated", 3.2, "", [["s1 axial: A([*]C(C)(C)C)", 4.9], ["s2 axial: A([*]C)", -1.7]]),
+         flag=None),
+    dict(name="cpr-Me", smiles="C[C@H]1CC[C@@H](C2CC2)CC1",
+         families=[("chair", {"s1": "equatorial", "s2": "axial"}, 0.0, 4),
+                   ("chair", {"s1": "axial", "s2": "equatorial"}, 0.4, 3),
+                   ("twist-boat", {"s1": "pseudo-equatorial", "s2": "pseudo-equatorial"}, 1.3, 3)],
+         additive=("qm-derived", -0.1, "", [["s1 axial: A([*]C)", 1.74], ["s2 axial: A([*]C1CC1) QM-derived", -1.84]]),
+         flag="non-chair families hold more than 5 percent of the population",
+         tabulated_qm=(None, -0.1)),
+    dict(name="thp-2-OMe", smiles="CO[C@@H]1CCCCO1",
+         families=[("chair", {"s1": "axial"}, 0.0, 3), ("chair", {"s1": "equatorial"}, 0.9, 3),
+                   ("twist-boat", {"s1": "pseudo-axial"}, 4.0, 2), ("boat", {"s1": "axial"}, 6.5, 1)],
+         additive=("outside-model", None, "ring heteroatom next to s1", []),
+         flag="outside the additive model: ring heteroatom next to s1"),
+    dict(name="gem-broken", smiles="CC1(C)CCCCC1", failed="every optimisation of the 12 seeds stopped: SCF did not converge"),
+    dict(name="ref-cyclopropyl", smiles="C1CC1C1CCCCC1", reference=True,
+         families=[("chair", {"s1": "equatorial"}, 0.0, 3), ("chair", {"s1": "axial"}, 1.9, 3)],
+         additive=("qm-derived", 1.9, "", [["s1 axial: A([*]C1CC1) QM-derived", 1.9]]), flag=None),
+]
+
+
+def _boltzmann(gs, t):
+    w = [math.exp(-g / (R_KCAL * t)) for g in gs]
+    return [x / sum(w) for x in w]
+
+
+def _orient(d):
+    return ";".join(f"{k}={v}" for k, v in d.items())
+
+
+def _axial(d):
+    return ";".join(k for k, v in d.items() if "axial" in v and "equatorial" not in v)
+
+
+def _family_label(form, d):
+    return f"{form} {_orient(d)}"
+
+
+def write_run_folder(out):
+    """Write a realistic run output folder (summary.csv, per molecule molecule.json, families.csv,
+    conformers.csv, ensemble.json) as the workflow's later stages lay it out."""
+    import pandas as pd
+
+    summary = []
+    for spec in MOLECULES:
+        name = spec["name"]
+        folder = out / name
+        p = perceive({"name": name, "smiles": spec["smiles"], "note": spec.get("note", ""),
+                      "reference": spec.get("reference", False)})[0]
+        fileio.write_text(folder / "molecule.json", p.to_json() + "\n")
+        if spec.get("failed"):
+            fileio.write_json(folder / "ensemble.json", {"molecule": name, "status": "failed",
+                                                         "reason": spec["failed"]})
+            for t in TEMPS:
+                summary.append(dict(molecule=name, temperature_k=t, status="failed", reason=spec["failed"]))
+            continue
+        fams, confs, temps = [], [], []
+        for t in TEMPS:
+            gf = [f[2] for f in spec["families"]]
+            pops = _boltzmann(gf, t)
+            for (form, d, g, n), pop in zip(spec["families"], pops):
+                fams.append(dict(temperature_k=t, ring_form=form, orientation=_orient(d), axial=_axial(d),
+                                 g_rel_kcal=g, population=pop, n_conformers=n))
+            rows, gs = [], []
+            k = 0
+            for form, d, g, n in spec["families"]:
+                for j in range(n):
+                    k += 1
+                    rows.append(dict(conformer=f"c{k:03d}", seed=f"seed{k:02d}", temperature_k=t, ring_form=form,
+                                     q=0.56 if form == "chair" else 0.70, theta=3.0 if form == "chair" else 90.0,
+                                     phi=30.0 * j, orientation=_orient(d),
+                                     energy_hartree=-20.5 + 0.001 * k, g_hartree=-20.4 + 0.001 * k,
+                                     n_imaginary=0, status="ok"))
+                    gs.append(g + 0.35 * j)
+            pops = _boltzmann(gs, t)
+            for r, g, pop in zip(rows, gs, pops):
+                r.update(g_rel_kcal=g, population=pop)
+            rows.append(dict(conformer=f"c{k + 1:03d}", seed="seed99", temperature_k=t, ring_form="other",
+                             q="", theta="", phi="", orientation="", energy_hartree="", g_hartree="",
+                             g_rel_kcal="", population="", n_imaginary=1, status="imaginary-mode"))
+            confs += rows
+            chairs = [f for f in spec["families"] if f[0] == "chair"]
+            gap = chairs[1][2] - chairs[0][2]
+            non_chair = sum(pp for f, pp in zip(spec["families"], _boltzmann(gf, t)) if f[0] != "chair")
+            source, dg, reason, terms = spec["additive"]
+            mono = len(chairs[0][1]) == 1
+            a_value = (gap if chairs[0][1]["s1"] == "equatorial" else -gap) if mono else None
+            tab, qm = spec.get("tabulated_qm", (dg if source == "tabulated" else None,
+                                                dg if source == "qm-derived" else None))
+            temps.append(dict(temperature_k=t, preferred_family=_family_label(*spec["families"][0][:2]),
+                              chair_dg_kcal=gap, a_value_kcal=a_value, twist_boat_population=non_chair,
+                              additive=dict(dg_kcal=dg, source=source, reason=reason, terms=terms,
+                                            tabulated_dg_kcal=tab, qm_dg_kcal=qm),
+                              flag=spec["flag"] is not None, flag_reason=spec["flag"] or ""))
+            cal = spec.get("calibration")
+            summary.append(dict(molecule=name, temperature_k=t, status="ok", reason="",
+                                n_conformers=len(rows) - 1, preferred_family=temps[-1]["preferred_family"],
+                                chair_dg_kcal=gap, a_value_kcal=a_value, twist_boat_population=non_chair,
+                                additive_dg_kcal=dg, additive_source=source, flag=str(spec["flag"] is not None).lower(),
+                                flag_reason=spec["flag"] or "",
+                                calibrated_kcal=cal[0] if cal else None, interval_low_kcal=cal[1] if cal else None,
+                                interval_high_kcal=cal[2] if cal else None))
+        curve = {"temperature_k": CURVE_T, "families": {
+            _family_label(f[0], f[1]): [] for f in spec["families"]}}
+        for t in CURVE_T:
+            for f, pop in zip(spec["families"], _boltzmann([f[2] for f in spec["families"]], t)):
+                curve["families"][_family_label(f[0], f[1])].append(pop)
+        fileio.write_csv(folder / "families.csv", pd.DataFrame(fams))
+        fileio.write_csv(folder / "conformers.csv", pd.DataFrame(confs))
+        fileio.write_json(folder / "ensemble.json", {"molecule": name, "status": "ok", "reason": "",
+                                                     "temperatures": temps, "curve": curve})
+    columns = ["molecule", "temperature_k", "status", "reason", "n_conformers", "preferred_family",
+               "chair_dg_kcal", "a_value_kcal", "twist_boat_population", "additive_dg_kcal", "additive_source",
+               "flag", "flag_reason", "calibrated_kcal", "interval_low_kcal", "interval_high_kcal"]
+    fileio.write_csv(out / "summary.csv", pd.DataFrame(summary, columns=columns))
+    return out
+
+
+RUN_INFO = {
+    "project": "ring study <fixture>",
+    "chairqm_version": "0.1.0",
+    "engine_versions": {"tblite": "0.4.0", "xtb-python": "22.1"},
+    "settings": {"temperatures_k": TEMPS, "solvent": {"model": "alpb", "name": "chloroform"},
+                 "engine": "tblite", "method": "GFN2-xTB", "thermo": {"model": "qrrho", "frequency_scale": 1.0}},
+    "started": "2025-03-01T10:00:00+00:00",
+    "finished": "2025-03-01T10:07:31+00:00",
+    "wall_seconds": 451.2,
+    "engine_seconds": 322.7,
+    "n_cpus": 2,
+}
+
+
+@pytest.fixture(scope="module")
+def run_folder(tmp_path_factory):
+    return write_run_folder(tmp_path_factory.mktemp("run"))
+
+
+@pytest.fixture(scope="module")
+def page(run_folder):
+    t0 = time.perf_counter()
+    path = write_report(run_folder, RUN_INFO)
+    seconds = time.perf_counter() - t0
+    return path, path.read_text(encoding="utf-8"), seconds
+
+
+class _Collect(HTMLParser):
+    """Every tag with its attributes, the text inside <style> and a check that tags nest properly."""
+
+    VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source", "track", "wbr"}
+
+    def __init__(self):
+        super().__init__(convert_charrefs=True)
+        self.tags, self.styles, self.stack, self.problems, self.text = [], [], [], [], []
+        self._in_style = False
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+        if tag == "style":
+            self._in_style = True
+        if tag not in self.VOID:
+            self.stack.append((tag, self.getpos()))
+
+    def handle_startendtag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+
+    def handle_endtag(self, tag):
+        if tag == "style":
+            self._in_style = False
+        if tag in self.VOID:
+            return
+        if not self.stack or self.stack[-1][0] != tag:
+            self.problems.append(f"</{tag}> at {self.getpos()} closes {self.stack[-1] if self.stack else 'nothing'}")
+            return
+        self.stack.pop()
+
+    def handle_data(self, data):
+        (self.styles if self._in_style else self.text).append(data)
+
+
+def _parse(text):
+    p = _Collect()
+    p.feed(text)
+    p.close()
+    return p
+
+
+def test_page_is_written_atomically_to_the_run_folder(page, run_folder):
+    path, text, _ = page
+    assert path == run_folder / "report.html"
+    assert text.startswith("<!DOCTYPE html>")
+    assert not list(run_folder.glob(".report.html.*"))        # no temporary file left behind
+    other = write_report(run_folder, RUN_INFO, path=run_folder / "elsewhere" / "r.html")
+    assert other.read_text(encoding="utf-8") == text
+
+
+def test_page_shows_molecules_families_flags_and_caution(page):
+    _, text, _ = page
+    for spec in MOLECULES:
+        assert html.escape(spec["name"]) in text
+        if spec.get("families"):
+            form, d = spec["families"][0][:2]
+            assert html.escape(_family_label(form, d)) in text            # the preferred family
+        if spec.get("flag"):
+            assert html.escape(spec["flag"]) in text
+    assert "Model predictions, not measurements" in text
+    assert "higher level of theory" in text and "GFN2-xTB" in text
+    assert "Flagged:" in text and "No flag:" in text
+    assert "no calibration matches these settings" in text
+    assert "95 % interval" in text                                   # methyl-chx carries a calibration
+    assert "does not cover this molecule" in text                    # the outside-model case in words
+    assert "Reference rings" in text
+    # the reference ring sits in its own section, not among the molecules
+    ref_at = text.index('id="reference"')
+    assert text.index("ref-cyclopropyl", text.index("</header>")) > ref_at
+    # one figure per plot: 4 ok non-reference molecules x (levels + curve), depictions for all 5 non-reference
+    parsed = _parse(text)
+    assert sum(1 for tag, _ in parsed.tags if tag == "svg") == 4 * 2 + 5
+    # conformers that are not counted are still listed
+    assert "imaginary-mode" in text
+
+
+def test_failed_molecule_renders_with_its_reason(page):
+    _, text, _ = page
+    reason = MOLECULES[4]["failed"]
+    block = text[text.index('id="m-gem-broken"'):]
+    block = block[:block.index("</article>")]
+    assert "This molecule failed" in block and html.escape(reason) in block
+
+
+def test_failed_molecule_with_nothing_but_a_reason(tmp_path):
+    fileio.write_json(tmp_path / "lonely" / "ensemble.json", {"status": "failed", "reason": "intake: bad valence"})
+    fileio.write_text(tmp_path / "summary.csv", "molecule,temperature_k,status,reason\nlonely,298.15,failed,"
+                      "intake: bad valence\n")
+    text = write_report(tmp_path, {"project": "p"}).read_text(encoding="utf-8")
+    assert "intake: bad valence" in text and "lonely" in text
+    assert not _parse(text).problems
+
+
+def test_text_from_files_is_escaped(page):
+    _, text, _ = page
+    assert "<script" not in text.lower()
+    assert html.escape("<script>alert('x')</script> & co") in text
+    assert "ring study &lt;fixture&gt;" in text
+
+
+def test_page_loads_nothing_external(page):
+    _, text, _ = page
+    parsed = _parse(text)
+    for tag, attrs in parsed.tags:
+        assert tag not in {"script", "link", "iframe", "object", "embed", "img", "base", "frame", "audio", "video"}, tag
+        for key in ("src", "href", "xlink:href", "data", "action", "poster", "srcset", "background", "formaction"):
+            if key in attrs:
+                assert (attrs[key] or "").startswith("#"), (tag, key, attrs[key])
+        for key, value in attrs.items():
+            if key == "xmlns" or key.startswith("xmlns:"):
+                continue                      # SVG namespace names are identifiers, nothing is fetched
+            assert not re.search(r"(?i)https?:|ftp:|file:", value or ""), (tag, key, value)
+            if key == "style":
+                assert not re.search(r"url\(\s*['\"]?(?!#)", value or ""), value
+    css = "".join(parsed.styles)
+    assert "@import" not in css and "@font-face" not in css
+    assert not re.search(r"url\(\s*['\"]?(?!#)", css)
+    # and nowhere in the page, outside the namespace declarations, is there a web address at all
+    stripped = re.sub(r"""\sxmlns(:\w+)?=(['"])[^'"]*\2""", "", text)
+    assert "http://" not in stripped and "https://" not in stripped
+
+
+def test_page_is_well_formed(page):
+    _, text, _ = page
+    parsed = _parse(text)
+    assert parsed.problems == []
+    assert parsed.stack == []
+    ids = [a["id"] for t, a in parsed.tags if "id" in a and t in {"article", "section"}]
+    assert len(ids) == len(set(ids))
+
+
+def test_page_is_deterministic_apart_from_timestamps(run_folder, page, tmp_path):
+    _, text, _ = page
+    again = write_report(run_folder, copy.deepcopy(RUN_INFO), path=tmp_path / "again.html").read_text(encoding="utf-8")
+    assert again == text
+    later = dict(copy.deepcopy(RUN_INFO), started="2031-12-24T23:00:00+00:00", finished="2031-12-24T23:59:59+00:00")
+    other = write_report(run_folder, later, path=tmp_path / "later.html").read_text(encoding="utf-8")
+    assert other != text
+    normalised = other.replace(later["started"], RUN_INFO["started"]).replace(later["finished"], RUN_INFO["finished"])
+    assert normalised == text
+
+
+def test_page_is_small_and_quick(page):
+    path, _, seconds = page
+    size = path.stat().st_size
+    assert size < 2_000_000, size           # the brief's limit for about five molecules
+    assert seconds < 20, seconds            # "a few seconds"; generous for a shared 2-core machine
+
+
+def test_depiction_labels_ring_and_groups():
+    # 2-methylpiperidine: the N-H hydrogen is a substituent and must be drawn (7 heavy atoms + that H)
+    p = perceive({"name": "m", "smiles": "C[C@@H]1CCCCN1"})[0]
+    subs = [vars(s) for s in p.substituents]
+    assert [s["fragment"] for s in subs] == ["[*]C", "[*][H]"]
+    svg = depiction_svg(p.mapped_smiles, subs, p.ring)
+    assert svg.startswith("<svg") and svg.rstrip().endswith("</svg>")
+    drawn = {int(i) for i in re.findall(r"atom-(\d+)", svg)}
+    assert drawn == set(range(8))
+    assert "class='note'" in svg
+    plain = depiction_svg("C[C@@H]1CCCCN1", [], [])           # no labels asked for: none drawn
+    assert "class='note'" not in plain
+    assert {int(i) for i in re.findall(r"atom-(\d+)", plain)} == set(range(7))
+    with pytest.raises(ValueError):
+        depiction_svg("C1CC", [], [])
+    with pytest.raises(ValueError):
+        depiction_svg("CC1CCCCC1", [], [0, 1, 2, 3, 4, 99])
+
+
+def test_missing_tables_and_curve_are_said_not_fatal(run_folder, tmp_path):
+    import shutil
+    out = tmp_path / "partial"
+    shutil.copytree(run_folder, out)
+    (out / "methyl-chx" / "families.csv").unlink()
+    (out / "methyl-chx" / "conformers.csv").unlink()
+    ens = json.loads((out / "methyl-chx" / "ensemble.json").read_text())
+    del ens["curve"]
+    fileio.write_json(out / "methyl-chx" / "ensemble.json", ens)
+    text = write_report(out, RUN_INFO).read_text(encoding="utf-8")
+    block = text[text.index('id="m-methyl-chx"'):]
+    block = block[:block.index("</article>")]
+    assert "No family table for this temperature" in block
+    assert block.count("<svg") == 1                                   # the depiction only
+    assert not _parse(text).problems
