@@ -146,6 +146,60 @@ def cmd_run(args, extra) -> int:
     return run_workflow(args.config, out, cores=args.cores, until=args.until, extra=extra)
 
 
+def cmd_avalue(args, extra) -> int:
+    """Build the group's monosubstituted cyclohexane, run the whole workflow on it, print the A-value."""
+    import yaml
+    from . import additivity, avalues
+    from .plan import _slug
+    frag = avalues.canonical_fragment(args.fragment)
+    smiles = additivity.reference_smiles(frag)
+    name = _slug(frag).replace("ref-", "avalue-", 1)
+    out = Path(args.out or Path("results") / name)
+    settings = {"temperatures_k": args.temperature or [298.15], "engine": args.engine, "method": args.method,
+                "analysis": {"reference_groups": False}}
+    if args.solvent:
+        model, _, sname = args.solvent.partition(":")
+        if not sname:
+            raise ChairqmError(f"--solvent {args.solvent!r}: write MODEL:NAME, e.g. alpb:water or gbsa:chloroform")
+        settings["solvent"] = {"model": model.lower(), "name": sname}
+    cfg = {"project": f"A-value of {frag}", "molecules": [{"name": name, "smiles": smiles,
+                                                           "note": f"monosubstituted cyclohexane of {frag}"}],
+           "settings": settings}
+    out.mkdir(parents=True, exist_ok=True)
+    cfg_path = out / "avalue-config.yaml"
+    from . import fileio
+    fileio.write_text(cfg_path, yaml.safe_dump(cfg, sort_keys=False))
+    code = run_workflow(cfg_path, out, cores=args.cores, until=None, extra=extra)
+    summary = out / "summary.csv"
+    if not summary.is_file():
+        return code or 1
+    import pandas as pd
+    df = pd.read_csv(summary, keep_default_na=False)
+    tab = avalues.lookup(frag)
+    for r in df.itertuples():
+        if r.status != "ok" or r.a_value_kcal == "":
+            print(f"{frag}: no A-value at {r.temperature_k:g} K ({r.reason or r.flag_reason})")
+            continue
+        fam = pd.read_csv(out / name / "families.csv")
+        fam = fam[fam["temperature_k"] == r.temperature_k]
+        chairs = fam[fam["ring_form"] == "chair"]
+        eq = chairs.loc[chairs["axial"].isna(), "population"].sum()
+        ax = chairs.loc[chairs["axial"].notna(), "population"].sum()
+        line = (f"A({frag}) = {float(r.a_value_kcal):.2f} kcal/mol at {r.temperature_k:g} K "
+                f"({settings['method']}, {args.engine}, {args.solvent or 'gas phase'}); "
+                f"equatorial chair {100 * eq:.1f} %, axial chair {100 * ax:.1f} %, "
+                f"other ring forms {100 * float(r.twist_boat_population):.1f} %")
+        cal = getattr(r, "calibrated_kcal", "")
+        if cal not in ("", None):
+            line += (f"; calibrated {float(cal):.2f} kcal/mol, 95 % interval "
+                     f"{float(r.interval_low_kcal):.2f} to {float(r.interval_high_kcal):.2f}")
+        print(line)
+    if tab is not None:
+        print(f"tabulated for comparison: {tab['a_value_kcal']:.2f} kcal/mol ({tab['source']})")
+    print(f"report: {out / 'report.html'}")
+    return code
+
+
 def build_parser() -> argparse.ArgumentParser:
     ap = argparse.ArgumentParser(prog="chairqm", description="Chair, twist-boat and rotamer populations of "
                                  "saturated six-membered rings from GFN2-xTB free energies.")
@@ -158,6 +212,14 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--out", help="output folder (default results/<config name>)")
     r.add_argument("--cores", type=int, default=2)
     r.add_argument("--until", help="stop after this stage: " + ", ".join(STAGE_ORDER))
+    a = sub.add_parser("avalue", help="compute the A-value of a group, e.g. chairqm avalue \"[*]C1CC1\"")
+    a.add_argument("fragment", help="the group as SMILES with one attachment point [*]")
+    a.add_argument("--out", help="output folder (default results/avalue-<group>)")
+    a.add_argument("--cores", type=int, default=2)
+    a.add_argument("--temperature", type=float, action="append", help="kelvin; repeat for several (default 298.15)")
+    a.add_argument("--solvent", help="MODEL:NAME, e.g. alpb:water (default gas phase)")
+    a.add_argument("--engine", default="tblite", choices=["tblite", "xtb-python"])
+    a.add_argument("--method", default="GFN2-xTB", choices=["GFN2-xTB", "GFN1-xTB"])
     return ap
 
 
@@ -173,6 +235,8 @@ def main(argv=None) -> int:
             return cmd_check(args)
         if args.command == "run":
             return cmd_run(args, extra)
+        if args.command == "avalue":
+            return cmd_avalue(args, extra)
     except ChairqmError as exc:
         for line in str(exc).splitlines():
             print(f"chairqm: error: {line}", file=sys.stderr)

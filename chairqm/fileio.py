@@ -7,6 +7,9 @@ import os
 import tempfile
 from pathlib import Path
 
+_UMASK = os.umask(0)
+os.umask(_UMASK)
+
 
 def write_text(path, text: str) -> None:
     path = Path(path)
@@ -17,6 +20,7 @@ def write_text(path, text: str) -> None:
             fh.write(text)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, 0o666 & ~_UMASK)      # mkstemp makes 0600; results are ordinary files
         os.replace(tmp, path)
     except BaseException:
         try:

@@ -29,9 +29,9 @@ class Plan:
         """fragment -> reference molecule name, for the groups of `name` with no tabulated A-value."""
         mol = self.get(name)
         refs = {}
-        for m in self.molecules:
-            if m.reference and len(m.substituents) == 1:
-                refs[m.substituents[0].fragment] = m.name
+        for m in sorted(self.molecules, key=lambda m: not m.reference):
+            if m.name != name and len(m.substituents) == 1 and m.ring_elements == ["C"] * 6:
+                refs.setdefault(m.substituents[0].fragment, m.name)
         return {s.fragment: refs[s.fragment] for s in mol.substituents if s.fragment in refs}
 
 

@@ -1,0 +1,350 @@
+"""Calibrate computed A-values against experiment: fit statistics, a linear correction and 95 % prediction intervals.
+
+A calibration compares the A-values a run computed for monosubstituted cyclohexanes (summary.csv
+``a_value_kcal``) with the tabulated experimental values (chairqm/data/avalues.csv) and records:
+
+* error statistics of the raw computed values, error e_i = computed_i − experimental_i:
+  MAE = mean |e_i|, mean signed error MSE = mean e_i, RMSE = sqrt(mean e_i²);
+* the correction used for prediction, an ordinary-least-squares line that predicts the experimental
+  value from the computed one, ``experimental = intercept + slope · computed``.  This direction is
+  chosen because a later run supplies a computed value x0 and asks for the experimental value it
+  implies; OLS of y (experimental) on x (computed) gives the best linear predictor of y from x and the
+  standard prediction interval below.  (The opposite regression, computed = a' + b'·experimental,
+  describes the method's systematic error and is stored as ``reverse_fit`` for the record only;
+  inverting it is not the least-squares predictor.)
+* the residual standard deviation s = sqrt(Σ r_i² / (n − 2)) of that line, r_i = y_i − ŷ_i;
+* the 95 % prediction interval for a new point,
+
+      ŷ0 ± t_{0.975, n−2} · s · sqrt(1 + 1/n + (x0 − x̄)² / Sxx),   Sxx = Σ (x_i − x̄)²,
+
+  the ordinary-least-squares prediction interval for a single new observation (N. R. Draper and
+  H. Smith, Applied Regression Analysis, 3rd ed., Wiley 1998, §3.1; D. C. Montgomery, E. A. Peck and
+  G. G. Vining, Introduction to Linear Regression Analysis, 5th ed., Wiley 2012, eq. 2.45), with
+  the Student t quantile from scipy.stats.t.
+
+Calibrations are keyed by the settings that change computed free energies (:func:`settings_key`:
+method, engine, solvent, thermochemistry model and frequency scale).  The package ships a list of them
+in chairqm/data/calibration.json; :func:`load_matching` returns the one whose key equals a run's key, or
+None — a run with no matching calibration gets no interval rather than an invented one.
+Energies here are in kcal/mol (A-values are free-energy differences reported in kcal/mol).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import time
+from dataclasses import asdict, dataclass, field
+from importlib import resources
+from pathlib import Path
+
+import numpy as np
+
+from .errors import ChairqmError
+
+CALIBRATION_FILE = "calibration.json"
+CONFIDENCE = 0.95
+REFERENCE_TEMPERATURE_K = 298.15
+PREDICTS = "experimental = intercept + slope * computed"
+# the defaults of chairqm/schemas/config.schema.json for the keyed settings
+_DEFAULTS = {"engine": "tblite", "method": "GFN2-xTB", "solvent": None, "thermo_model": "qrrho",
+             "frequency_scale": 1.0}
+
+
+@dataclass
+class Calibration:
+    """A fitted calibration (kcal/mol).  ``intercept``/``slope`` predict experimental from computed."""
+
+    settings: dict                 # settings_key() of the runs it applies to
+    n: int
+    mae_kcal: float                # mean |computed − experimental|
+    mse_kcal: float                # mean signed error, computed − experimental
+    rmse_kcal: float
+    intercept: float               # experimental = intercept + slope · computed
+    slope: float
+    residual_sd_kcal: float        # s of that line, n − 2 degrees of freedom
+    x_mean_kcal: float             # mean computed value, x̄
+    sxx_kcal2: float               # Σ (x_i − x̄)²
+    t_quantile: float              # t_{0.975, n−2}
+    r_squared: float
+    reverse_fit: dict = field(default_factory=dict)   # computed = intercept + slope · experimental (diagnostic)
+    confidence: float = CONFIDENCE
+    quantity: str = "a_value_kcal"
+    temperature_k: float = REFERENCE_TEMPERATURE_K
+    predicts: str = PREDICTS
+    points: list = field(default_factory=list)        # per-molecule rows (see calibrate_run)
+    created: str = ""
+    note: str = ""
+
+    def table(self):
+        """The per-molecule points as a pandas DataFrame."""
+        import pandas as pd
+        return pd.DataFrame(self.points)
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "Calibration":
+        known = {f for f in cls.__dataclass_fields__}
+        return cls(**{k: v for k, v in d.items() if k in known})
+
+
+# ------------------------------------------------------------------------------------------ fitting
+
+def fit(computed, experimental, settings: dict | None = None, confidence: float = CONFIDENCE) -> Calibration:
+    """Error statistics of `computed` against `experimental` and the OLS line experimental = a + b·computed.
+
+    Both are sequences of kcal/mol values, paired by position.  Least squares (Draper and Smith 1998,
+    §1.2): b = Sxy / Sxx, a = ȳ − b·x̄ with x = computed, y = experimental; residual SD
+    s = sqrt(Σ (y_i − a − b·x_i)² / (n − 2)).  Needs n ≥ 3 finite pairs and computed values that are not
+    all equal; raises ChairqmError otherwise.  `settings` (a settings_key dict) is stored as the key.
+    """
+    from scipy import stats
+
+    x = np.asarray(computed, dtype=float).ravel()
+    y = np.asarray(experimental, dtype=float).ravel()
+    if x.shape != y.shape:
+        raise ChairqmError(f"calibration: {x.size} computed values but {y.size} experimental values; "
+                           "give one experimental value per computed value")
+    if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))):
+        raise ChairqmError("calibration: a computed or experimental value is missing (NaN/inf): "
+                           "drop the molecules that failed before fitting")
+    n = int(x.size)
+    if n < 3:
+        raise ChairqmError(f"calibration needs at least 3 molecules with computed and experimental values, "
+                           f"got {n}: add reference molecules")
+    if not 0 < confidence < 1:
+        raise ChairqmError(f"confidence must be between 0 and 1, got {confidence}")
+    err = x - y
+    xm, ym = float(x.mean()), float(y.mean())
+    sxx = float(((x - xm) ** 2).sum())
+    syy = float(((y - ym) ** 2).sum())
+    sxy = float(((x - xm) * (y - ym)).sum())
+    if sxx <= 0:
+        raise ChairqmError("calibration: all computed values are equal, so no line can be fitted: "
+                           "use reference groups with different A-values")
+    b = sxy / sxx
+    a = ym - b * xm
+    resid = y - (a + b * x)
+    s = math.sqrt(float((resid ** 2).sum()) / (n - 2))
+    r2 = (sxy * sxy) / (sxx * syy) if syy > 0 else float("nan")
+    # the reverse, diagnostic regression computed = a' + b'·experimental
+    rev = {}
+    if syy > 0:
+        b2 = sxy / syy
+        a2 = xm - b2 * ym
+        res2 = x - (a2 + b2 * y)
+        rev = {"intercept": a2, "slope": b2, "residual_sd_kcal": math.sqrt(float((res2 ** 2).sum()) / (n - 2)),
+               "model": "computed = intercept + slope * experimental"}
+    t = float(stats.t.ppf(0.5 + confidence / 2.0, n - 2))
+    return Calibration(settings=dict(settings or {}), n=n, mae_kcal=float(np.abs(err).mean()),
+                       mse_kcal=float(err.mean()), rmse_kcal=float(math.sqrt((err ** 2).mean())),
+                       intercept=float(a), slope=float(b), residual_sd_kcal=s, x_mean_kcal=xm, sxx_kcal2=sxx,
+                       t_quantile=t, r_squared=float(r2), reverse_fit=rev, confidence=float(confidence),
+                       created=time.strftime("%Y-%m-%dT%H:%M:%S%z"))
+
+
+def interval_half_width(calibration: Calibration, value_kcal: float) -> float:
+    """t_{(1+c)/2, n−2} · s · sqrt(1 + 1/n + (x0 − x̄)²/Sxx): half-width of the prediction interval at x0.
+
+    Ordinary-least-squares prediction interval for one new observation (Draper and Smith 1998, §3.1;
+    Montgomery, Peck and Vining 2012, eq. 2.45).
+    """
+    c = calibration
+    x0 = float(value_kcal)
+    return c.t_quantile * c.residual_sd_kcal * math.sqrt(1.0 + 1.0 / c.n + (x0 - c.x_mean_kcal) ** 2 / c.sxx_kcal2)
+
+
+def apply(calibration: Calibration, value_kcal) -> tuple[float, float, float]:
+    """(calibrated, low, high) in kcal/mol for one computed value; all three NaN if the value is missing.
+
+    calibrated = intercept + slope · value; low/high = calibrated ∓ :func:`interval_half_width`.
+    """
+    if value_kcal is None:
+        return (math.nan, math.nan, math.nan)
+    x0 = float(value_kcal)
+    if not math.isfinite(x0):
+        return (math.nan, math.nan, math.nan)
+    yhat = calibration.intercept + calibration.slope * x0
+    h = interval_half_width(calibration, x0)
+    return (float(yhat), float(yhat - h), float(yhat + h))
+
+
+# ------------------------------------------------------------------------------------------ settings key
+
+def _norm_solvent(solvent):
+    if solvent in (None, "", {}):
+        return None
+    if isinstance(solvent, dict):
+        model = str(solvent.get("model", "")).strip().lower()
+        name = str(solvent.get("name", "")).strip().lower()
+        return f"{model}:{name}"
+    text = str(solvent).strip().lower()
+    return None if text in ("", "none", "null", "gas", "gas phase") else text
+
+
+def settings_key(settings: dict | None) -> dict:
+    """The settings that change computed free energies, normalised: the key a calibration is stored under.
+
+    Accepts a run's ``settings`` block (defaults filled or not) or a whole configuration (its
+    ``settings`` is used).  Returns {'engine', 'method', 'solvent' ('alpb:water'-style or None for gas
+    phase), 'thermo_model', 'frequency_scale'}; missing entries take the configuration schema's defaults.
+    """
+    s = dict(settings or {})
+    if "settings" in s and isinstance(s["settings"], dict):
+        s = dict(s["settings"])
+    thermo = s.get("thermo") or {}
+    scale = thermo.get("frequency_scale", _DEFAULTS["frequency_scale"])
+    return {"engine": str(s.get("engine", _DEFAULTS["engine"])),
+            "method": str(s.get("method", _DEFAULTS["method"])),
+            "solvent": _norm_solvent(s.get("solvent", _DEFAULTS["solvent"])),
+            "thermo_model": str(thermo.get("model", _DEFAULTS["thermo_model"])),
+            "frequency_scale": round(float(scale), 6)}
+
+
+def key_text(key: dict) -> str:
+    """A one-line description of a settings key, for reports and messages."""
+    k = settings_key(key) if "thermo_model" not in key else key
+    return (f"{k['method']} with {k['engine']}, {k['solvent'] or 'gas phase'}, "
+            f"{k['thermo_model']}, frequency scale {k['frequency_scale']:g}")
+
+
+def _same_key(a: dict | None, b: dict | None) -> bool:
+    if a is None or b is None:
+        return False
+    return (a["engine"] == b["engine"] and a["method"] == b["method"] and a["solvent"] == b["solvent"]
+            and a["thermo_model"] == b["thermo_model"]
+            and math.isclose(float(a["frequency_scale"]), float(b["frequency_scale"]), abs_tol=1e-6))
+
+
+# ------------------------------------------------------------------------------------------ files
+
+def packaged_path() -> Path:
+    """Path of the calibration file that ships with the package."""
+    return Path(str(resources.files("chairqm") / "data" / CALIBRATION_FILE))
+
+
+def load_all(path=None) -> list[Calibration]:
+    """Every calibration in `path` (default: the packaged file); [] if the file does not exist."""
+    p = Path(path) if path is not None else packaged_path()
+    if not p.is_file():
+        return []
+    try:
+        data = json.loads(p.read_text(encoding="utf-8"))
+    except (OSError, ValueError) as exc:
+        raise ChairqmError(f"calibration file {p} is not readable JSON ({exc}): restore it or recompute it "
+                           "with a run of configs/reference.yaml") from None
+    items = data.get("calibrations", []) if isinstance(data, dict) else data
+    return [Calibration.from_dict(d) for d in items]
+
+
+def save(calibration: Calibration, path) -> None:
+    """Store `calibration` in the list file `path` (atomic write): it replaces an entry with the same key."""
+    from . import fileio
+    p = Path(path)
+    if settings_key_of(calibration) is None:
+        raise ChairqmError("this calibration has no settings key: fit it with settings=settings_key(run settings)")
+    items = [c for c in load_all(p) if not _same_key(settings_key_of(c), settings_key_of(calibration))]
+    items.append(calibration)
+    fileio.write_json(p, [c.to_dict() for c in items])
+
+
+def settings_key_of(c: Calibration) -> dict | None:
+    """The stored key of a calibration, or None if it lacks one of the keyed settings (it then matches nothing)."""
+    k = c.settings or {}
+    if any(name not in k for name in _DEFAULTS):
+        return None
+    return {"engine": str(k["engine"]), "method": str(k["method"]), "solvent": _norm_solvent(k["solvent"]),
+            "thermo_model": str(k["thermo_model"]), "frequency_scale": float(k["frequency_scale"])}
+
+
+def load_matching(settings: dict | None, path=None) -> Calibration | None:
+    """The calibration stored for these settings (see :func:`settings_key`), or None if none matches.
+
+    `path` defaults to the packaged chairqm/data/calibration.json.  If several match, the last stored wins.
+    """
+    key = settings_key(settings)
+    hits = [c for c in load_all(path) if _same_key(settings_key_of(c), key)]
+    return hits[-1] if hits else None
+
+
+# ------------------------------------------------------------------------------------------ from a run
+
+def calibrate_run(out_dir, config, temperature_k: float = REFERENCE_TEMPERATURE_K) -> Calibration:
+    """Fit a calibration from a finished run of a reference configuration (e.g. configs/reference.yaml).
+
+    Reads ``out_dir/summary.csv`` (``a_value_kcal`` at `temperature_k`) and each molecule's
+    ``out_dir/<molecule>/molecule.json`` (its one substituent's canonical fragment), looks the fragment
+    up in the packaged A-value table and fits :func:`fit` on the pairs.  `config` is the configuration
+    path or the loaded configuration dict; its settings give the key.  The returned Calibration's
+    ``points`` (``.table()``) lists every molecule of the configuration with its group, experimental
+    value, source, computed value, error and whether it was used ('used' or why not).
+    Raises ChairqmError if the run is not finished or fewer than 3 molecules are usable.
+    """
+    import pandas as pd
+
+    from . import avalues
+    from . import config as cq_config
+
+    out = Path(out_dir)
+    cfg = cq_config.load(config) if not isinstance(config, dict) else config
+    summary = out / "summary.csv"
+    if not summary.is_file():
+        raise ChairqmError(f"{summary} not found: finish the run first "
+                           f"(chairqm run {cfg.get('_config_path', 'CONFIG')} --out {out})")
+    df = pd.read_csv(summary)
+    table = avalues.load_table()
+    points = []
+    for m in cfg["molecules"]:
+        name = m["name"]
+        row = {"molecule": name, "group": "", "fragment": "", "experimental_kcal": math.nan,
+               "range_low_kcal": math.nan, "range_high_kcal": math.nan, "source": "", "from_memory": None,
+               "computed_kcal": math.nan, "error_kcal": math.nan, "used": ""}
+        mj = out / name / "molecule.json"
+        if not mj.is_file():
+            row["used"] = "no molecule.json (intake did not run)"
+            points.append(row)
+            continue
+        perceived = json.loads(mj.read_text(encoding="utf-8"))
+        subs = perceived.get("substituents", [])
+        elements = perceived.get("ring_elements", [])
+        if len(subs) != 1 or any(e != "C" for e in elements):
+            row["used"] = "not a monosubstituted cyclohexane"
+            points.append(row)
+            continue
+        frag = subs[0]["fragment"]
+        row["fragment"] = frag
+        hit = table[table["fragment"] == frag]
+        if hit.empty:
+            row["used"] = "group not in the A-value table"
+            points.append(row)
+            continue
+        t = hit.iloc[0]
+        row.update(group=t["group"], experimental_kcal=float(t["a_value_kcal"]),
+                   range_low_kcal=float(t["range_low_kcal"]), range_high_kcal=float(t["range_high_kcal"]),
+                   source=t["source"], from_memory=bool(t["from_memory"]))
+        sel = df[(df["molecule"] == name) & (np.isclose(df["temperature_k"].astype(float), float(temperature_k)))]
+        if sel.empty:
+            row["used"] = f"no summary row at {temperature_k:g} K"
+        elif str(sel.iloc[0]["status"]) != "ok":
+            row["used"] = f"run status {sel.iloc[0]['status']}: {sel.iloc[0].get('reason', '')}"
+        elif pd.isna(sel.iloc[0]["a_value_kcal"]):
+            row["used"] = "no computed A-value"
+        else:
+            row["computed_kcal"] = float(sel.iloc[0]["a_value_kcal"])
+            row["error_kcal"] = row["computed_kcal"] - row["experimental_kcal"]
+            row["used"] = "used"
+        points.append(row)
+    used = [p for p in points if p["used"] == "used"]
+    if len(used) < 3:
+        raise ChairqmError(f"only {len(used)} molecule(s) of {out} have both a computed and a tabulated "
+                           "A-value; a calibration needs at least 3: check summary.csv for failures")
+    cal = fit([p["computed_kcal"] for p in used], [p["experimental_kcal"] for p in used],
+              settings=settings_key(cfg.get("settings")))
+    cal.temperature_k = float(temperature_k)
+    cal.points = [{k: (None if isinstance(v, float) and math.isnan(v) else v) for k, v in p.items()}
+                  for p in points]
+    cal.note = (f"fitted on {cal.n} monosubstituted cyclohexanes of {cfg.get('_config_path', 'a reference run')}"
+                f" at {temperature_k:g} K; experimental values from chairqm/data/avalues.csv (from memory)")
+    return cal
