@@ -11,15 +11,22 @@ _UMASK = os.umask(0)
 os.umask(_UMASK)
 
 
-def write_text(path, text: str) -> None:
+def write_text(path, text: str, fsync: bool = True) -> None:
+    write_bytes(path, text.encode("utf-8"), fsync=fsync)
+
+
+def write_bytes(path, data: bytes, fsync: bool = True) -> None:
+    """Atomic write. fsync=False suits cache files: after a power cut a damaged cache file fails to load
+    and is recomputed, while an interrupted process can never leave a half-written one."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            fh.write(text)
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
             fh.flush()
-            os.fsync(fh.fileno())
+            if fsync:
+                os.fsync(fh.fileno())
         os.chmod(tmp, 0o666 & ~_UMASK)      # mkstemp makes 0600; results are ordinary files
         os.replace(tmp, path)
     except BaseException:
@@ -30,8 +37,8 @@ def write_text(path, text: str) -> None:
         raise
 
 
-def write_json(path, obj) -> None:
-    write_text(path, json.dumps(obj, indent=1, sort_keys=True, default=_default) + "\n")
+def write_json(path, obj, fsync: bool = True) -> None:
+    write_text(path, json.dumps(obj, indent=1, sort_keys=True, default=_default) + "\n", fsync=fsync)
 
 
 def write_csv(path, frame) -> None:

@@ -29,6 +29,7 @@ from ase import Atoms
 from ase.units import create_units
 from scipy.linalg import null_space
 
+from chairqm import fileio
 from chairqm.errors import ChairqmError
 from chairqm.units import HARTREE_EV, KCAL_PER_HARTREE
 
@@ -94,35 +95,16 @@ def _disp_name(atom: int, axis: int, sign: int) -> str:
 
 
 def _atomic_write_npz(path: Path, **arrays) -> None:
-    """Write to a temporary name, then os.replace: an interrupted process leaves no half-written file.
-    No fsync (not needed against an interrupted process): after a power cut a damaged file fails to load,
-    and :func:`_load_forces` then treats it as missing and the displacement is recomputed."""
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.part")
-    try:
-        with open(tmp, "wb") as fh:
-            np.savez(fh, **arrays)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
+    """Atomic, without fsync: a damaged file after a power cut fails to load in :func:`_load_forces`,
+    which treats it as missing, and the displacement is recomputed."""
+    import io
+    buf = io.BytesIO()
+    np.savez(buf, **arrays)
+    fileio.write_bytes(path, buf.getvalue(), fsync=False)
 
 
 def _atomic_write_json(path: Path, obj) -> None:
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.part")
-    try:
-        with open(tmp, "w", encoding="utf-8") as fh:
-            json.dump(obj, fh, indent=1, sort_keys=True)
-            fh.write("\n")
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
+    fileio.write_json(path, obj, fsync=False)
 
 
 def _clear_displacements(folder: Path) -> int:
