@@ -231,9 +231,9 @@ def stage_minima(cfg, plan, name, threads=1):
         out_json = work / f"{seed}.json"
         if out_json.is_file():
             old = fileio.read_json(out_json)
-            if old.get("key") == key and (work / f"{seed}.xyz").is_file():
+            if old.get("key") == key and old.get("status") != "failed" and (work / f"{seed}.xyz").is_file():
                 recs[seed] = old          # finished earlier with the same input and settings: reuse
-                continue
+                continue                  # (a failed record is retried)
         jobs.append((name, seed, key, es, opt, str(xyz_in), str(work / f"{seed}.xyz"), str(out_json)))
     for rec in _pool_map(_optimise_one, jobs, threads):
         recs[rec["seed"]] = rec
@@ -380,9 +380,11 @@ def stage_thermo(cfg, plan, name, threads=1):
         xyz_in = folder / "minima" / f"{cid}.xyz"
         key = key_of(xyz_in.read_text(), es, opt, th, sorted(map(float, temps)), __version__)
         out_json = work / "thermo" / f"{cid}.json"
-        if out_json.is_file() and fileio.read_json(out_json).get("key") == key:
-            recs[cid] = fileio.read_json(out_json)
-            continue
+        if out_json.is_file():
+            old = fileio.read_json(out_json)
+            if old.get("key") == key and old.get("status") != "failed":
+                recs[cid] = old           # reuse; a failed record is retried
+                continue
         cache = work / "freq" / f"{cid}-{key_of(xyz_in.read_text(), es, th['step_a'])[:10]}"
         jobs.append((name, cid, key, es, opt, th, temps, str(xyz_in), c["energy_hartree"], str(cache),
                      str(out_json), str(work / "thermo" / f"{cid}.xyz")))
