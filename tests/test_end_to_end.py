@@ -159,3 +159,21 @@ def test_rerun_with_nothing_changed_computes_nothing(run):
                            "--dry-run"], capture_output=True, text=True)
     assert proc.returncode == 0, proc.stderr[-2000:]
     assert "Nothing to be done" in proc.stdout + proc.stderr
+
+
+def test_avalue_command_answers_for_an_untabulated_group(tmp_path):
+    from chairqm import avalues
+    frag = "[*]C1CC1"                      # cyclopropyl: not in the package table
+    assert avalues.lookup(frag) is None
+    out = tmp_path / "av"
+    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "avalue", frag, "--out", str(out), "--cores", "2"],
+                          capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    line = [l for l in proc.stdout.splitlines() if l.startswith(f"A({frag}) =")]
+    assert line, proc.stdout
+    value = float(line[0].split("=")[1].split()[0])
+    # a small hydrocarbon group bonded through a CH: its A-value must be positive and of the size of the
+    # small alkyl groups' (methyl 1.74 to isopropyl 2.21 kcal/mol in the package table) — a loose sanity
+    # window of 0.5–3 kcal/mol (common practice), not a precise check value
+    assert 0.5 < value < 3.0
+    assert (out / "report.html").is_file()
