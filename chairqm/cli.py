@@ -200,6 +200,27 @@ def cmd_avalue(args, extra) -> int:
     return code
 
 
+def cmd_calibrate(args, extra) -> int:
+    """Run the reference set, fit computed against experimental A-values, store the calibration."""
+    from . import calibration as cq_cal
+    out = Path(args.out or default_out(args.config))
+    code = run_workflow(args.config, out, cores=args.cores, until=None, extra=extra)
+    if not (out / "summary.csv").is_file():
+        return code or 1
+    cal = cq_cal.calibrate_run(out, args.config)
+    print(cal.table()[["molecule", "group", "experimental_kcal", "computed_kcal", "error_kcal", "used"]]
+          .to_string(index=False))
+    print(cq_cal.summary_text(cal))
+    target = Path(args.save) if args.save else out / "calibration.json"
+    cq_cal.save(cal, target)
+    cq_cal.parity_plot(cal, out / "parity.png")
+    print(f"chairqm: calibration stored in {target}; parity plot {out / 'parity.png'}")
+    if not args.save:
+        print("chairqm: to use it for later runs with these settings, rerun with "
+              f"--save {cq_cal.packaged_path()}")
+    return code
+
+
 def build_parser() -> argparse.ArgumentParser:
     ap = argparse.ArgumentParser(prog="chairqm", description="Chair, twist-boat and rotamer populations of "
                                  "saturated six-membered rings from GFN2-xTB free energies.")
@@ -220,6 +241,11 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--solvent", help="MODEL:NAME, e.g. alpb:water (default gas phase)")
     a.add_argument("--engine", default="tblite", choices=["tblite", "xtb-python"])
     a.add_argument("--method", default="GFN2-xTB", choices=["GFN2-xTB", "GFN1-xTB"])
+    k = sub.add_parser("calibrate", help="compute the reference set and fit computed against experimental A-values")
+    k.add_argument("config", nargs="?", default=str(project_root() / "configs" / "reference.yaml"))
+    k.add_argument("--out", help="output folder (default results/<config name>)")
+    k.add_argument("--cores", type=int, default=2)
+    k.add_argument("--save", help="calibration list file to add the result to (default OUT/calibration.json)")
     return ap
 
 
@@ -237,6 +263,8 @@ def main(argv=None) -> int:
             return cmd_run(args, extra)
         if args.command == "avalue":
             return cmd_avalue(args, extra)
+        if args.command == "calibrate":
+            return cmd_calibrate(args, extra)
     except ChairqmError as exc:
         for line in str(exc).splitlines():
             print(f"chairqm: error: {line}", file=sys.stderr)

@@ -628,6 +628,31 @@ SUMMARY_COLUMNS = ["molecule", "temperature_k", "status", "reason", "n_conformer
                    "additive_source", "flag", "flag_reason"]
 
 
+CALIBRATION_COLUMNS = ["calibrated_kcal", "interval_low_kcal", "interval_high_kcal", "calibrated_quantity"]
+
+
+def _calibrate_rows(rows, settings) -> str:
+    """Calibrated value and 95 % prediction interval for each row's A-value (or, for rings with several
+    groups, its chair gap), from the packaged calibration whose settings match this run; none otherwise."""
+    from . import calibration as cq_cal
+    cal = cq_cal.load_matching(settings)
+    if cal is None:
+        return ("no calibration matches these settings (method, engine, solvent, thermochemistry): "
+                "values are uncalibrated")
+    for r in rows:
+        if r.get("status") != "ok":
+            continue
+        for quantity in ("a_value_kcal", "chair_dg_kcal"):
+            v = r.get(quantity)
+            if v is not None and v == v:
+                c, lo, hi = cq_cal.apply(cal, float(v))
+                r.update({"calibrated_kcal": c, "interval_low_kcal": lo, "interval_high_kcal": hi,
+                          "calibrated_quantity": quantity})
+                break
+    return (f"calibrated against {cal.n} experimental A-values (residual SD {cal.residual_sd_kcal:.2f} kcal/mol); "
+            "chair gaps of rings with several groups use the same line, an extrapolation")
+
+
 def summary_rows(cfg, plan):
     rows = []
     for m in plan.molecules:
@@ -663,7 +688,8 @@ def stage_report(cfg, plan, name=None, threads=1):
     from . import engine as cq_engine
     from . import report as cq_report
     rows = summary_rows(cfg, plan)
-    summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS)
+    calibration_note = _calibrate_rows(rows, cfg["settings"])
+    summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS + CALIBRATION_COLUMNS)
     summary["flag"] = summary["flag"].map(lambda v: "true" if bool(v) else "false")
     fileio.write_csv("summary.csv", summary)
     engine_s, calls = 0.0, 0
@@ -687,7 +713,7 @@ def stage_report(cfg, plan, name=None, threads=1):
             "wall_seconds": round(now - started["epoch"], 2) if "epoch" in started else None,
             "engine_seconds": round(engine_s, 2), "gradient_calls": calls,
             "engine_seconds_note": "engine time summed over the stages that computed in this folder, including reused records",
-            "n_cpus": os.cpu_count()}
+            "n_cpus": os.cpu_count(), "calibration": calibration_note}
     fileio.write_json("provenance.json", prov)
     _write_db(plan)
     cq_report.write_report(Path("."), prov)
