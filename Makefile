@@ -16,7 +16,7 @@ $(BIN)/python:
 	$(BIN)/python -m pip install --quiet --upgrade pip
 
 $(VENV)/.installed: pyproject.toml $(BIN)/python
-	$(BIN)/python -m pip install --quiet -e ".[test]"
+	$(BIN)/python -m pip install --quiet -e ".[test,dft]"
 	@touch $@
 
 install: $(VENV)/.installed

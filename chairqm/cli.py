@@ -14,7 +14,7 @@ from . import config as cq_config
 from .errors import ChairqmError
 
 EXIT_INPUT = 2
-STAGE_ORDER = ["intake", "seeds", "minima", "thermo"]
+STAGE_ORDER = ["intake", "seeds", "minima", "thermo", "refine"]
 
 
 def project_root() -> Path:
@@ -57,6 +57,20 @@ def _prepare(config_path):
             engine.check_settings(s["engine"], s["method"], s.get("solvent"))
         except ChairqmError as exc:
             problems.append(str(exc))
+    if not problems and cfg["settings"].get("refine") is not None:
+        try:
+            from . import refine
+            rs = refine.resolve(cfg["settings"]["refine"])
+            for m in plan.molecules:
+                elements = [a.GetSymbol() for a in m.mol.GetAtoms()]
+                try:
+                    refine.check(rs, elements, m.charge, m.multiplicity, cfg["settings"].get("solvent"))
+                except ChairqmError as exc:
+                    problems.append(f"{m.name}: refine: {exc}")
+        except ImportError as exc:
+            problems.append(f"settings.refine needs PySCF and dftd3: pip install -e '.[dft]' ({exc})")
+        except ChairqmError as exc:
+            problems.append(f"settings.refine: {exc}")
     if problems:
         raise ChairqmError("\n".join(problems))
     return cfg, plan

@@ -415,6 +415,111 @@ def stage_thermo(cfg, plan, name, threads=1):
         "energy_hartree", "g_corr_hartree", "point_group", "model", "rounds", "reason"]))
 
 
+# ------------------------------------------------------------------------------------------ refine
+
+REFINE_COLUMNS = ["conformer", "selected", "energy_hartree", "energy_refined_hartree", "solvation_hartree",
+                  "converged", "seconds", "status", "reason"]
+
+
+def _refine_one(job):
+    """One DFT single point on a GFN2-xTB minimum; record written atomically."""
+    from . import refine as cq_refine
+    name, cid, key, rs, es, solvent, xyz, out_json, scratch = job
+    p = load_molecule(name)
+    atoms = atoms_from_xyz(xyz)
+    res = cq_refine.single_point(atoms, p.charge, p.multiplicity, rs, threads=1, scratch_dir=scratch,
+                                 solvent=solvent)
+    solv = 0.0
+    if res.get("converged") and solvent and rs["solvent_model"] == "gfn2-delta":
+        solv = cq_refine.xtb_solvation_hartree(atoms, es)
+    rec = {"key": key, "conformer": cid, **res, "solvation_hartree": solv,
+           "status": "ok" if res.get("converged") else "failed", "reason": res.get("message", "")}
+    fileio.write_json(out_json, rec)
+    return rec
+
+
+def refine_settings(cfg):
+    from . import refine as cq_refine
+    block = cfg["settings"].get("refine")
+    return None if block is None else cq_refine.resolve(block)
+
+
+def stage_refine(cfg, plan, name, threads=1):
+    """DFT single points (PySCF) on the conformers within the window of the lowest plus the lowest of each
+    chair family; every other conformer keeps its GFN2-xTB value shifted by the mean DFT − GFN2 offset."""
+    import pandas as pd
+    from . import __version__
+    from . import refine as cq_refine
+    rs = refine_settings(cfg)
+    p = load_molecule(name)
+    folder = Path(name)
+    es = engine_settings(cfg, p)
+    t0 = float(cfg["settings"]["temperatures_k"][0])
+    confs = [c for c in _final_conformers(name, p, cfg) if c["usable"]]
+    rows, jobs, recs = [], [], {}
+    if confs:
+        from . import ensemble as cq_ens
+        df = pd.DataFrame([{"conformer": c["conformer"], "ring_form": c["ring_form"],
+                            "orientation": c["orientation"], "g_hartree": _g_at(c, t0),
+                            "degeneracy": c["degeneracy"]} for c in confs])
+        cp = cq_ens.conformer_populations(df, t0)
+        sel_df = df.merge(cp[["conformer", "g_rel_kcal"]], on="conformer")
+        selected = set(cq_refine.select(sel_df, rs["window_kcal"]))
+        for c in confs:
+            if c["conformer"] not in selected:
+                continue
+            xyz = folder / "work" / "thermo" / f"{c['conformer']}.xyz"
+            key = key_of(xyz.read_text(), rs, es, __version__)
+            out_json = folder / "work" / "refine" / f"{c['conformer']}.json"
+            if out_json.is_file():
+                old = fileio.read_json(out_json)
+                if old.get("key") == key and old.get("status") == "ok":
+                    recs[c["conformer"]] = old
+                    continue
+            jobs.append((name, c["conformer"], key, rs, es, cfg["settings"].get("solvent"), str(xyz),
+                         str(out_json), str(folder / "work" / "refine" / "scratch")))
+        for rec in _pool_map(_refine_one, jobs, threads):
+            recs[rec["conformer"]] = rec
+        for c in confs:
+            r = recs.get(c["conformer"])
+            rows.append({"conformer": c["conformer"], "selected": r is not None,
+                         "energy_hartree": c["rec"]["energy_hartree"],
+                         "energy_refined_hartree": r.get("energy_hartree") if r else None,
+                         "solvation_hartree": r.get("solvation_hartree") if r else None,
+                         "converged": r.get("converged") if r else None,
+                         "seconds": r.get("seconds") if r else None,
+                         "status": r["status"] if r else "not-selected", "reason": r.get("reason", "") if r else
+                         f"more than {rs['window_kcal']:g} kcal/mol above the lowest and not the lowest of a chair family"})
+    fileio.write_csv(folder / "refine.csv", pd.DataFrame(rows, columns=REFINE_COLUMNS))
+    fileio.write_json(folder / "refine.json", {"molecule": name, "settings": rs, "versions": cq_refine.versions(),
+                                               "dft_seconds": float(sum(r.get("seconds") or 0 for r in recs.values()))})
+
+
+def _apply_refinement(name, confs):
+    """Put refined free energies on the conformers: G = E(DFT) + [G − E](GFN2-xTB) (+ GFN2 solvation with
+    'gfn2-delta'). A conformer that was not refined (or whose SCF failed) gets its GFN2-xTB G shifted by the
+    mean E(DFT) − E(GFN2) of the refined ones. Returns False when there is nothing to apply."""
+    import numpy as np
+    import pandas as pd
+    path = Path(name) / "refine.csv"
+    if not path.is_file():
+        return False
+    df = pd.read_csv(path, keep_default_na=False)
+    ok = df[df["status"] == "ok"]
+    if ok.empty:
+        return False
+    shift = {r.conformer: float(r.energy_refined_hartree) + float(r.solvation_hartree or 0.0) - float(r.energy_hartree)
+             for r in ok.itertuples()}
+    mean = float(np.mean(list(shift.values())))
+    for c in confs:
+        c["refined"] = c["conformer"] in shift
+        c["dft_shift"] = shift.get(c["conformer"], mean)
+        row = df[df["conformer"] == c["conformer"]]
+        c["energy_refined_hartree"] = (float(row["energy_refined_hartree"].iloc[0])
+                                       if c["refined"] else None)
+    return True
+
+
 # ------------------------------------------------------------------------------------------ ensemble
 
 CONFORMER_COLUMNS = ["conformer", "seed", "temperature_k", "ring_form", "q", "theta", "phi", "orientation",
@@ -469,9 +574,13 @@ def _final_conformers(name, p, cfg):
     return confs
 
 
-def _g_at(c, t):
+def _g_at(c, t, refined=True):
+    """G(T) of a conformer in hartree: GFN2-xTB, or the refined composite value when refinement ran."""
     term = (c["rec"].get("terms") or {}).get(f"{float(t):.2f}")
-    return None if term is None else c["rec"]["energy_hartree"] + term["g_corr"]
+    if term is None:
+        return None
+    g = c["rec"]["energy_hartree"] + term["g_corr"]
+    return g + c["dft_shift"] if (refined and "dft_shift" in c) else g
 
 
 def _qm_a_values(plan, name, temperature):
@@ -535,6 +644,12 @@ def _analyse_temperature(p, plan, name, cfg, usable_df, t):
     return fam, row
 
 
+def _frame(confs, t, refined=True):
+    import pandas as pd
+    return pd.DataFrame([{"conformer": c["conformer"], "ring_form": c["ring_form"], "orientation": c["orientation"],
+                          "g_hartree": _g_at(c, t, refined), "degeneracy": c["degeneracy"]} for c in confs])
+
+
 def stage_ensemble(cfg, plan, name, threads=1):
     import pandas as pd
     from . import ensemble as cq_ens
@@ -542,9 +657,10 @@ def stage_ensemble(cfg, plan, name, threads=1):
     folder = Path(name)
     temps = [float(t) for t in cfg["settings"]["temperatures_k"]]
     confs = _final_conformers(name, p, cfg)
+    refined = cfg["settings"].get("refine") is not None and _apply_refinement(name, confs)
     usable = [c for c in confs if c["usable"]]
     out = {"molecule": name, "smiles": p.smiles, "reference": p.reference, "status": "ok", "reason": "",
-           "temperatures": [], "curve": {"temperature_k": CURVE_T, "families": {}}}
+           "refined": bool(refined), "temperatures": [], "curve": {"temperature_k": CURVE_T, "families": {}}}
     conf_rows, fam_frames = [], []
     if not usable:
         out["status"] = "failed"
@@ -553,29 +669,37 @@ def stage_ensemble(cfg, plan, name, threads=1):
     for t in temps:
         pops = {}
         if usable:
-            df = pd.DataFrame([{"conformer": c["conformer"], "ring_form": c["ring_form"],
-                                "orientation": c["orientation"], "g_hartree": _g_at(c, t),
-                                "degeneracy": c["degeneracy"]} for c in usable])
+            df = _frame(usable, t)
             cp = cq_ens.conformer_populations(df, t)
             pops = {r.conformer: (r.g_rel_kcal, r.population) for r in cp.itertuples()}
             fam, row = _analyse_temperature(p, plan, name, cfg, df, t)
+            if refined:
+                # the GFN2-xTB values beside the refined ones
+                fam_u, row_u = _analyse_temperature(p, plan, name, cfg, _frame(usable, t, refined=False), t)
+                fam = fam.merge(fam_u[["ring_form", "orientation", "g_rel_kcal", "population"]].rename(
+                    columns={"g_rel_kcal": "g_rel_unrefined_kcal", "population": "population_unrefined"}),
+                    on=["ring_form", "orientation"], how="left")
+                row["unrefined"] = {k: row_u[k] for k in ("preferred_family", "chair_dg_kcal", "a_value_kcal",
+                                                          "twist_boat_population", "flag", "flag_reason")}
             fam_frames.append(fam)
             out["temperatures"].append(row)
         for c in confs:
             g_rel, pop = pops.get(c["conformer"], (None, 0.0 if c["usable"] is False else None))
-            conf_rows.append({"conformer": c["conformer"], "seed": c["seed"], "temperature_k": t,
-                              "ring_form": c["ring_form"], "q": c["q"], "theta": c["theta"], "phi": c["phi"],
-                              "orientation": c["orientation"], "energy_hartree": c["rec"]["energy_hartree"],
-                              "g_hartree": _g_at(c, t), "g_rel_kcal": g_rel, "population": pop,
-                              "n_imaginary": c["rec"]["proof"]["n_imaginary"], "status": c["status"],
-                              "degeneracy": c["degeneracy"], "symmetry_number": c["rec"].get("symmetry_number"),
-                              "reason": c["reason"]})
+            r = {"conformer": c["conformer"], "seed": c["seed"], "temperature_k": t,
+                 "ring_form": c["ring_form"], "q": c["q"], "theta": c["theta"], "phi": c["phi"],
+                 "orientation": c["orientation"], "energy_hartree": c["rec"]["energy_hartree"],
+                 "g_hartree": _g_at(c, t, refined=False), "g_rel_kcal": g_rel, "population": pop,
+                 "n_imaginary": c["rec"]["proof"]["n_imaginary"], "status": c["status"],
+                 "degeneracy": c["degeneracy"], "symmetry_number": c["rec"].get("symmetry_number"),
+                 "reason": c["reason"]}
+            if refined:
+                r["energy_refined_hartree"] = c.get("energy_refined_hartree")
+                r["g_refined_hartree"] = _g_at(c, t) if "dft_shift" in c else None
+                r["refined_single_point"] = bool(c.get("refined"))
+            conf_rows.append(r)
     if usable:
         for t in CURVE_T:
-            df = pd.DataFrame([{"conformer": c["conformer"], "ring_form": c["ring_form"],
-                                "orientation": c["orientation"], "g_hartree": _g_at(c, t),
-                                "degeneracy": c["degeneracy"]} for c in usable])
-            fam = cq_ens.families(df, t)
+            fam = cq_ens.families(_frame(usable, t), t)
             for r in fam.itertuples():
                 key = cq_ens.family_key(r.ring_form, r.orientation)
                 out["curve"]["families"].setdefault(key, [0.0] * len(CURVE_T))
@@ -583,7 +707,9 @@ def stage_ensemble(cfg, plan, name, threads=1):
     fams = pd.concat(fam_frames, ignore_index=True) if fam_frames else pd.DataFrame(columns=FAMILY_COLUMNS)
     extra = [c for c in fams.columns if c not in FAMILY_COLUMNS]
     fileio.write_csv(folder / "families.csv", fams[FAMILY_COLUMNS + extra])
-    conf_df = pd.DataFrame(conf_rows, columns=CONFORMER_COLUMNS + ["degeneracy", "symmetry_number", "reason"])
+    more = ["degeneracy", "symmetry_number", "reason"] + (
+        ["energy_refined_hartree", "g_refined_hartree", "refined_single_point"] if refined else [])
+    conf_df = pd.DataFrame(conf_rows, columns=CONFORMER_COLUMNS + more)
     fileio.write_csv(folder / "conformers.csv", conf_df)
     _write_sdf(folder / "conformers.sdf", p, confs, temps[0], conf_df)
     fileio.write_json(folder / "ensemble.json", out)
@@ -676,7 +802,10 @@ def summary_rows(cfg, plan):
                          "chair_dg_kcal": r["chair_dg_kcal"], "a_value_kcal": r["a_value_kcal"],
                          "twist_boat_population": r["twist_boat_population"],
                          "additive_dg_kcal": add.get("dg_kcal"), "additive_source": add.get("source", ""),
-                         "flag": bool(r["flag"]), "flag_reason": r["flag_reason"]})
+                         "flag": bool(r["flag"]), "flag_reason": r["flag_reason"],
+                         "refined": bool(ens.get("refined")),
+                         "chair_dg_unrefined_kcal": (r.get("unrefined") or {}).get("chair_dg_kcal"),
+                         "a_value_unrefined_kcal": (r.get("unrefined") or {}).get("a_value_kcal")})
     return rows
 
 
@@ -689,7 +818,9 @@ def stage_report(cfg, plan, name=None, threads=1):
     from . import report as cq_report
     rows = summary_rows(cfg, plan)
     calibration_note = _calibrate_rows(rows, cfg["settings"])
-    summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS + CALIBRATION_COLUMNS)
+    refined_cols = ["refined", "chair_dg_unrefined_kcal", "a_value_unrefined_kcal"] \
+        if cfg["settings"].get("refine") is not None else []
+    summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS + CALIBRATION_COLUMNS + refined_cols)
     summary["flag"] = summary["flag"].map(lambda v: "true" if bool(v) else "false")
     fileio.write_csv("summary.csv", summary)
     engine_s, calls = 0.0, 0
@@ -751,7 +882,7 @@ def _write_db(plan):
     del db
     os.replace(tmp, "conformers.db")
 
-STAGES = {"intake": stage_intake, "seeds": stage_seeds, "minima": stage_minima, "thermo": stage_thermo,
+STAGES = {"intake": stage_intake, "seeds": stage_seeds, "minima": stage_minima, "thermo": stage_thermo, "refine": stage_refine,
           "ensemble": stage_ensemble, "report": stage_report}
 
 

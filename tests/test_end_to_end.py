@@ -177,3 +177,23 @@ def test_avalue_command_answers_for_an_untabulated_group(tmp_path):
     # window of 0.5–3 kcal/mol (common practice), not a precise check value
     assert 0.5 < value < 3.0
     assert (out / "report.html").is_file()
+
+
+def test_dft_refinement_of_methylcyclohexane(tmp_path):
+    """settings.refine: B3LYP-D3(BJ)/def2-SVP single points on the GFN2-xTB chairs, composite free energies."""
+    cfg = tmp_path / "refine.yaml"
+    cfg.write_text(yaml.safe_dump({"molecules": [{"name": "mch", "smiles": "CC1CCCCC1"}],
+                                   "settings": {"seeds": {"twist_boats": False}, "refine": {}}}))
+    out = tmp_path / "out"
+    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "2"],
+                          capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    r = summary(out).iloc[0]
+    assert str(r.refined) == "True"
+    # refined A-value against experiment: 1.74 kcal/mol (Booth and Everett 1980), within 0.5
+    assert abs(float(r.a_value_kcal) - 1.74) <= 0.5
+    assert float(r.a_value_unrefined_kcal) != float(r.a_value_kcal)
+    c = pd.read_csv(out / "mch" / "conformers.csv")
+    assert {"energy_refined_hartree", "g_refined_hartree"} <= set(c.columns)
+    fam = pd.read_csv(out / "mch" / "families.csv")
+    assert {"g_rel_unrefined_kcal", "population_unrefined"} <= set(fam.columns)

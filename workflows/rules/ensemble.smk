@@ -6,17 +6,22 @@ def reference_inputs(wc):
     return [f"{ref}/ensemble.json" for ref in PLAN.references_for(wc.mol).values()]
 
 
+def refine_inputs(wc):
+    return [f"{wc.mol}/refine.csv"] if SETTINGS.get("refine") is not None else []
+
+
 rule ensemble:
     input:
         "{mol}/thermo.csv",
         reference_inputs,
+        refine_inputs,
     output:
         "{mol}/ensemble.json",
         "{mol}/families.csv",
         "{mol}/conformers.csv",
         "{mol}/conformers.sdf",
     params:
-        fp=fingerprint("temperatures_k", "analysis", "unique"),
+        fp=fingerprint("temperatures_k", "analysis", "unique", "refine"),
     log:
         "{mol}/logs/ensemble.log",
     shell:

@@ -26,3 +26,8 @@ rule until_minima:
 rule until_thermo:
     input:
         expand("{mol}/thermo.csv", mol=MOLECULES),
+
+
+rule until_refine:
+    input:
+        expand("{mol}/refine.csv", mol=MOLECULES) if SETTINGS.get("refine") is not None else [],
