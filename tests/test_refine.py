@@ -1,0 +1,386 @@
+"""DFT refinement: PySCF single points against published energies, D3 against published parameters,
+the composite free energy and the conformer selection by hand, settings checks, failure isolation."""
+
+import os
+
+os.environ.setdefault("OMP_NUM_THREADS", "1")  # before tblite / PySCF are imported
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from ase import Atoms
+from ase.build import molecule
+
+pyscf = pytest.importorskip("pyscf")
+dftd3_interface = pytest.importorskip("dftd3.interface")
+
+from chairqm import refine  # noqa: E402
+from chairqm.errors import ChairqmError  # noqa: E402
+from chairqm.units import BOHR_A, KCAL_PER_HARTREE  # noqa: E402
+
+HF_STO3G = {"functional": "HF", "basis": "STO-3G", "dispersion": "none", "density_fitting": False,
+            "conv_tol": 1e-11}
+
+
+def water_crawford() -> Atoms:
+    # Water geometry of the Crawford group's programming projects, Project #3 (the Hartree-Fock SCF),
+    # input file geom.dat, in bohr (from memory).
+    bohr = np.array([[0.000000000000, -0.143225816552, 0.000000000000],
+                     [1.638036840407, 1.136548822547, -0.000000000000],
+                     [-1.638036840407, 1.136548822547, -0.000000000000]])
+    return Atoms("OHH", positions=bohr * BOHR_A)
+
+
+# ---------------------------------------------------------------------------- published SCF energies
+def test_hf_sto3g_water_reproduces_the_published_total_energy():
+    # Crawford group programming projects, Project #3: nuclear repulsion 8.002367061810450 Eh and
+    # RHF/STO-3G total energy -74.942079928192 Eh at this geometry (from memory).
+    w = water_crawford()
+    mol = refine.build_mole(w, 0, 1, "STO-3G")
+    assert mol.energy_nuc() == pytest.approx(8.002367061810450, abs=1e-8)
+    r = refine.single_point(w, 0, 1, HF_STO3G)
+    assert r["converged"] and r["message"] == ""
+    assert r["e_disp"] == 0.0
+    assert r["energy_hartree"] == pytest.approx(-74.942079928192, abs=1e-6)
+
+
+def test_hf_sto3g_water_at_the_experimental_geometry_matches_szabo_ostlund():
+    # Szabo & Ostlund, Modern Quantum Chemistry (1989), Table 3.13: H2O at R = 1.809 bohr, angle 104.52 deg,
+    # STO-3G energy -74.963 Eh (from memory; published to 1 mEh).
+    r, ang = 1.809 * BOHR_A, math.radians(104.52)
+    w = Atoms("OHH", positions=[[0, 0, 0], [r, 0, 0], [r * math.cos(ang), r * math.sin(ang), 0]])
+    res = refine.single_point(w, 0, 1, HF_STO3G)
+    assert res["energy_hartree"] == pytest.approx(-74.963, abs=6e-4)
+
+
+# ---------------------------------------------------------------------------------------- dispersion
+def _d3_reference(atoms, param):
+    model = dftd3_interface.DispersionModel(atoms.get_atomic_numbers(), atoms.get_positions() / BOHR_A)
+    return model.get_dispersion(param, grad=False)["energy"]
+
+
+def test_d3bj_uses_the_published_b3lyp_parameters():
+    # B3LYP-D3(BJ): s6 = 1, a1 = 0.3981, s8 = 1.9889, a2 = 4.4211 bohr (Grimme, Ehrlich, Goerigk,
+    # J. Comput. Chem. 2011, 32, 1456, Table 2; from memory). Two-body only.
+    a = molecule("CH3CH2OH")
+    ref = _d3_reference(a, dftd3_interface.RationalDampingParam(s6=1.0, a1=0.3981, s8=1.9889, a2=4.4211, s9=0.0))
+    e = refine.dispersion_energy(a.get_atomic_numbers(), a.get_positions(), "B3LYP", "d3bj")
+    assert e < 0
+    assert e == pytest.approx(ref, abs=1e-10)
+
+
+def test_d3zero_uses_the_published_b3lyp_parameters():
+    # B3LYP-D3(0): s6 = 1, sr6 = 1.261, s8 = 1.703 (Grimme, Antony, Ehrlich, Krieg, J. Chem. Phys. 2010,
+    # 132, 154104, Table IV; from memory); sr8 = 1 and alpha = 14 by construction. Two-body only.
+    a = molecule("CH3CH2OH")
+    ref = _d3_reference(a, dftd3_interface.ZeroDampingParam(s6=1.0, rs6=1.261, s8=1.703, s9=0.0))
+    e = refine.dispersion_energy(a.get_atomic_numbers(), a.get_positions(), "B3LYP", "d3zero")
+    assert e == pytest.approx(ref, abs=1e-10)
+    assert refine.dispersion_energy(a.get_atomic_numbers(), a.get_positions(), "B3LYP", "none") == 0.0
+
+
+def test_b3lyp_d3bj_water_matches_pyscf_and_dftd3_computed_directly():
+    # reference libraries: PySCF's density-fitted RKS and simple-dftd3's own PySCF bridge, called directly.
+    from dftd3.pyscf import DFTD3Dispersion
+    from pyscf import dft, gto
+
+    w = molecule("H2O")
+    r = refine.single_point(w, 0, 1, {})
+    mol = gto.M(atom=[(s, tuple(p)) for s, p in zip(w.get_chemical_symbols(), w.get_positions())],
+                basis="def2-SVP", unit="Angstrom", verbose=0)
+    mf = dft.RKS(mol, xc="B3LYP").density_fit()
+    mf.conv_tol = 1e-10
+    e_scf = mf.kernel()
+    e_disp = DFTD3Dispersion(mol, xc="b3lyp", version="d3bj").kernel()[0]
+    assert r["converged"] and r["functional"] == "B3LYP" and r["basis"] == "def2-SVP"
+    assert r["e_scf"] == pytest.approx(e_scf, abs=1e-7)
+    assert r["e_disp"] == pytest.approx(float(e_disp), abs=1e-10)
+    assert r["energy_hartree"] == pytest.approx(e_scf + float(e_disp), abs=1e-7)
+    assert r["n_basis"] == 24  # def2-SVP: O 3s2p1d = 14, H 2s1p = 5 each (Weigend, Ahlrichs 2005)
+    assert r["pyscf_version"] == pyscf.__version__ and r["cycles"] > 0 and r["seconds"] > 0
+
+
+def test_thread_count_does_not_change_the_energy_and_is_restored():
+    from pyscf import lib
+    before = lib.num_threads()
+    w = molecule("H2O")
+    r1 = refine.single_point(w, 0, 1, HF_STO3G, threads=1)
+    r2 = refine.single_point(w, 0, 1, HF_STO3G, threads=2)
+    assert r1["energy_hartree"] == pytest.approx(r2["energy_hartree"], abs=1e-9)
+    assert lib.num_threads() == before
+
+
+def test_open_shell_uses_unrestricted_kohn_sham():
+    # the methyl radical is a doublet: <S^2> = S(S+1) = 0.75 exactly, and a little spin contamination in
+    # UKS (common practice: below 0.76 for a simple radical)
+    r = refine.single_point(molecule("CH3"), 0, 2, {"basis": "def2-SVP"})
+    assert r["converged"]
+    assert 0.75 <= r["spin_square"] < 0.76
+
+
+# ------------------------------------------------------------------------------------------- solvent
+def test_dielectric_constants_come_from_the_minnesota_table_with_tblite_names():
+    # Minnesota Solvent Descriptor Database (Marenich et al. 2012): water 78.355, THF 7.4257, DMSO 46.826
+    # (from memory)
+    assert refine.solvent_dielectric("water") == pytest.approx(78.355)
+    assert refine.solvent_dielectric("thf") == pytest.approx(7.4257)
+    assert refine.solvent_dielectric("dmso") == pytest.approx(46.826)
+    with pytest.raises(ChairqmError, match="gfn2-delta"):
+        refine.solvent_dielectric("woctanol")
+
+
+def test_pcm_hydrates_water_by_a_few_kcal_per_mol():
+    # hydration free energy of water -6.3 kcal/mol (Ben-Naim, Marcus, J. Chem. Phys. 1984, 81, 2016; from
+    # memory); a C-PCM electrostatic term alone lands within a few kcal/mol of it (common practice).
+    w = molecule("H2O")
+    solvent = {"model": "alpb", "name": "water"}
+    gas = refine.single_point(w, 0, 1, {}, solvent=solvent)          # default gfn2-delta: gas-phase DFT
+    pcm = refine.single_point(w, 0, 1, {"solvent_model": "pcm"}, solvent=solvent)
+    assert gas["solvent_model"] == "gas" and pcm["solvent_model"] == "pcm"
+    assert pcm["dielectric"] == pytest.approx(78.355)
+    dg = (pcm["energy_hartree"] - gas["energy_hartree"]) * KCAL_PER_HARTREE
+    assert -10.0 < dg < -3.0
+
+
+def test_gfn2_solvation_delta_is_solvated_minus_gas_energy():
+    from ase.units import Hartree
+    from tblite.ase import TBLite
+
+    w = molecule("H2O")
+    es = {"engine": "tblite", "method": "GFN2-xTB", "solvent": {"model": "alpb", "name": "water"},
+          "accuracy": 1.0, "electronic_temperature": 300.0, "charge": 0, "multiplicity": 1}
+    energies = {}
+    for key, solv in (("solv", ("alpb", "water")), ("gas", None)):
+        a = w.copy()
+        a.calc = TBLite(method="GFN2-xTB", verbosity=0, **({"solvation": solv} if solv else {}))
+        energies[key] = a.get_potential_energy() / Hartree
+    d = refine.xtb_solvation_hartree(w, es)
+    assert d == pytest.approx(energies["solv"] - energies["gas"], abs=1e-8)
+    assert d < 0  # water is stabilised by water
+    assert refine.xtb_solvation_hartree(w, dict(es, solvent=None)) == 0.0
+
+
+# ----------------------------------------------------------------------------------------- composite
+def test_composite_keeps_the_xtb_thermal_correction():
+    # by hand: G = E_DFT + (G_xtb - E_xtb) + dG_solv
+    assert refine.composite(-275.0, -22.15, -21.99) == pytest.approx(-275.0 + 0.16, abs=1e-12)
+    assert refine.composite(-275.0, -22.15, -21.99, -0.004) == pytest.approx(-275.0 + 0.16 - 0.004, abs=1e-12)
+    g = refine.composite(np.array([-1.0, -2.0]), np.array([-0.5, -0.6]), np.array([-0.4, -0.45]))
+    np.testing.assert_allclose(g, [-0.9, -1.85], atol=1e-12)
+    # a relative refined free energy: the GFN2 thermal difference plus the DFT electronic difference
+    ga, gb = refine.composite(-1.003, -0.501, -0.400), refine.composite(-1.000, -0.500, -0.398)
+    assert ga - gb == pytest.approx((-1.003 + 1.000) + (0.101 - 0.102), abs=1e-12)
+
+
+# ----------------------------------------------------------------------------------------- selection
+def worked_example():
+    # a disubstituted ring worked by hand: lowest chair c1 at 0, c2 (same family as c1) at 1.0, a second
+    # chair family at 4.2 (c3) and 5.0 (c4), twist-boats at 2.9 (c5) and 6.0 (c6), a failed c7 and a saddle
+    # c8 below everything
+    return pd.DataFrame([
+        ("c1", "chair", "s1=equatorial;s2=equatorial", 0.0, "ok"),
+        ("c2", "chair", "s2=equatorial;s1=equatorial", 1.0, "ok"),
+        ("c3", "chair", "s1=axial;s2=axial", 4.2, "ok"),
+        ("c4", "chair", "s1=axial;s2=axial", 5.0, "ok"),
+        ("c5", "twist-boat", "s1=pseudo-equatorial;s2=isoclinal", 2.9, "ok"),
+        ("c6", "twist-boat", "s1=isoclinal;s2=pseudo-axial", 6.0, "ok"),
+        ("c7", "chair", "s1=equatorial;s2=axial", float("nan"), "failed"),
+        ("c8", "chair", "s1=equatorial;s2=axial", -1.0, "saddle"),
+    ], columns=["conformer", "ring_form", "orientation", "g_rel_kcal", "status"])
+
+
+def test_select_takes_the_window_and_the_lowest_of_each_chair_family():
+    df = worked_example()
+    # window 3: c1, c2, c5 (<= 3.0); plus c3, the lowest of the diaxial chair family; not c4, c6, c7, c8
+    assert refine.select(df, 3.0) == ["c1", "c2", "c5", "c3"]
+    # window 0: the lowest of each chair family only
+    assert refine.select(df, 0.0) == ["c1", "c3"]
+    # the window edge is inclusive
+    assert refine.select(df, 2.9) == ["c1", "c2", "c5", "c3"]
+    assert refine.select(df, 10.0) == ["c1", "c2", "c5", "c3", "c4", "c6"]
+
+
+def test_select_re_references_to_the_lowest_usable_and_reads_a_usable_column():
+    df = worked_example()
+    df["g_rel_kcal"] += 2.0                          # not relative to the lowest usable any more
+    df["usable"] = df["status"] == "ok"
+    df.loc[df["conformer"] == "c1", "usable"] = False  # now c2 is the lowest usable
+    assert refine.select(df, 1.9) == ["c2", "c5", "c3"]
+
+
+def test_select_with_two_temperatures_takes_the_union_unless_one_is_named():
+    a = worked_example().assign(temperature_k=298.15)
+    b = worked_example().assign(temperature_k=400.0)
+    b.loc[b["conformer"] == "c6", "g_rel_kcal"] = 2.0   # a twist-boat comes into the window when hot
+    both = pd.concat([a, b], ignore_index=True)
+    assert refine.select(both, 3.0) == ["c1", "c2", "c5", "c3", "c6"]
+    assert refine.select(both, 3.0, temperature_k=298.15) == ["c1", "c2", "c5", "c3"]
+
+
+def test_select_rejects_bad_input():
+    with pytest.raises(ChairqmError, match="window"):
+        refine.select(worked_example(), -1.0)
+    with pytest.raises(ChairqmError, match="g_rel_kcal"):
+        refine.select(worked_example().drop(columns="g_rel_kcal"), 3.0)
+    assert refine.select(worked_example().iloc[0:0], 3.0) == []
+
+
+# -------------------------------------------------------------------------------------------- checks
+def test_check_accepts_the_defaults_for_iodine_and_rejects_a_basis_without_it():
+    ch3i = ["C", "H", "H", "H", "I"]
+    refine.check({}, ch3i, 0, 1)                    # def2-SVP covers H-Rn (Weigend, Ahlrichs 2005)
+    refine.check(None, ch3i, 0, 1)
+    # Pople's 6-31G* is defined only up to Kr, and not for I (Rassolov et al. 1998; from memory)
+    with pytest.raises(ChairqmError, match="6-31G.*I"):
+        refine.check({"basis": "6-31G*"}, ch3i, 0, 1)
+    refine.check({"basis": "6-31G*"}, ["C", "H", "H", "H", "Br"], 0, 1)
+    with pytest.raises(ChairqmError, match="basis"):
+        refine.check({"basis": "def2-SVQ"}, ["C", "H", "H", "H", "H"], 0, 1)
+
+
+def test_check_rejects_unknown_functional_dispersion_and_bad_settings():
+    ch4 = ["C", "H", "H", "H", "H"]
+    with pytest.raises(ChairqmError, match="unknown functional 'B3LPY'"):
+        refine.check({"functional": "B3LPY"}, ch4)
+    with pytest.raises(ChairqmError, match="dispersion"):
+        refine.check({"functional": "B3LYP-D3BJ"}, ch4)
+    with pytest.raises(ChairqmError, match="unknown dispersion"):
+        refine.check({"dispersion": "d5"}, ch4)
+    # M06-2X has zero-damping D3 parameters only (Grimme et al. 2010 vs 2011 tables; from memory)
+    with pytest.raises(ChairqmError, match="no parameters"):
+        refine.check({"functional": "M06-2X", "dispersion": "d3bj"}, ch4)
+    refine.check({"functional": "M06-2X", "dispersion": "none"}, ch4)
+    with pytest.raises(ChairqmError, match="max_memory_mb"):
+        refine.check({"max_memory_mb": 100}, ch4)
+    with pytest.raises(ChairqmError, match="max_memory_mb"):
+        refine.check({"max_memory_mb": 10 ** 9}, ch4)
+    with pytest.raises(ChairqmError, match="whole number"):
+        refine.check({"max_memory_mb": "lots"}, ch4)
+    with pytest.raises(ChairqmError, match="conv_tol"):
+        refine.check({"conv_tol": 0.1}, ch4)
+    with pytest.raises(ChairqmError, match="unknown key"):
+        refine.check({"functionl": "PBE0"}, ch4)
+    with pytest.raises(ChairqmError, match="solvent_model"):
+        refine.check({"solvent_model": "smd"}, ch4)
+    with pytest.raises(ChairqmError, match="gfn2-delta"):
+        refine.check({"solvent_model": "pcm"}, ch4, solvent={"model": "alpb", "name": "woctanol"})
+
+
+def test_check_rejects_charge_and_multiplicity_that_do_not_fit_the_electrons():
+    ch3 = ["C", "H", "H", "H"]                       # 9 electrons
+    with pytest.raises(ChairqmError, match="multiplicity"):
+        refine.check({}, ch3, 0, 1)
+    refine.check({}, ch3, 0, 2)
+    refine.check({}, ch3, 1, 1)                      # CH3+ has 8
+    # with an ECP the core electrons are gone but the parity stays: I has 25 valence electrons in def2-SVP
+    # (a 28-electron core; Peterson et al. 2003)
+    with pytest.raises(ChairqmError, match="multiplicity"):
+        refine.check({}, ["I"], 0, 1)
+    refine.check({}, ["I"], 0, 2)
+
+
+def test_settings_schema_matches_the_defaults():
+    import jsonschema
+
+    props = refine.SETTINGS_SCHEMA["properties"]
+    assert set(props) == set(refine.DEFAULTS)
+    assert {k: v["default"] for k, v in props.items()} == refine.DEFAULTS
+    jsonschema.validate(refine.DEFAULTS, refine.SETTINGS_SCHEMA)
+    jsonschema.validate({}, refine.SETTINGS_SCHEMA)
+    for bad in ({"basis": ""}, {"extra": 1}, {"dispersion": "d4"}, {"max_memory_mb": 10}, {"window_kcal": -1}):
+        with pytest.raises(jsonschema.ValidationError):
+            jsonschema.validate(bad, refine.SETTINGS_SCHEMA)
+    assert refine.resolve({"window_kcal": 2})["window_kcal"] == 2.0
+    assert refine.resolve(None) == refine.DEFAULTS
+
+
+# ------------------------------------------------------------------------------------------- failures
+def test_an_scf_that_does_not_converge_is_reported_not_raised():
+    r = refine.single_point(molecule("H2O"), 0, 1, {"max_cycle": 1})
+    assert r["converged"] is False
+    assert r["energy_hartree"] is None
+    assert "not converged" in r["message"] and "fallback" in r["message"]
+
+
+def test_an_scf_that_crashes_is_reported_not_raised(monkeypatch):
+    class Broken:
+        def kernel(self, *a, **k):
+            raise np.linalg.LinAlgError("singular overlap")
+
+    monkeypatch.setattr(refine, "_scf_object", lambda *a, **k: Broken())
+    r = refine.single_point(molecule("H2O"), 0, 1, {})
+    assert r["converged"] is False and r["energy_hartree"] is None
+    assert "LinAlgError" in r["message"] and "singular overlap" in r["message"]
+
+
+def test_user_fixable_settings_raise_from_single_point():
+    with pytest.raises(ChairqmError, match="6-31G"):
+        refine.single_point(Atoms("HI", positions=[[0, 0, 0], [0, 0, 1.61]]), 0, 1, {"basis": "6-31G*"})
+    with pytest.raises(ChairqmError, match="multiplicity"):
+        refine.single_point(molecule("CH3"), 0, 1, {})
+
+
+# ------------------------------------------------------------------------------ methylcyclohexane
+def _chair_and_orientation(pos, ring, c1, methyl):
+    p = np.asarray(pos)
+    tors = []
+    for k in range(6):
+        a, b, c, d = (p[ring[(k + m) % 6]] for m in range(4))
+        b0, b1, b2 = a - b, c - b, d - c
+        n1, n2 = np.cross(b0, b1), np.cross(b1, b2)
+        tors.append(math.degrees(math.atan2(np.dot(np.cross(n1, n2), b1 / np.linalg.norm(b1)), np.dot(n1, n2))))
+    # chair: ring torsions alternate in sign, none small (common practice; ideal ±55°)
+    chair = all(np.sign(tors[k]) != np.sign(tors[(k + 1) % 6]) for k in range(6)) and min(map(abs, tors)) > 30
+    normal = np.linalg.svd(p[ring] - p[ring].mean(0))[2][2]
+    bond = p[methyl] - p[c1]
+    cos = abs(np.dot(bond, normal)) / np.linalg.norm(bond)
+    # axial bonds are parallel to the ring's mean-plane normal, equatorial ones nearly in the plane
+    return chair, ("axial" if cos > 0.85 else "equatorial" if cos < 0.5 else "?")
+
+
+def gfn2_methylcyclohexane_chairs():
+    """Equatorial and axial chair of methylcyclohexane: RDKit ETKDG + MMFF, then GFN2-xTB (tblite) with BFGS."""
+    from ase.optimize import BFGS
+    from rdkit import Chem
+    from rdkit.Chem import AllChem
+    from tblite.ase import TBLite
+
+    mol = Chem.AddHs(Chem.MolFromSmiles("CC1CCCCC1"))
+    ids = AllChem.EmbedMultipleConfs(mol, numConfs=30, randomSeed=20240611)
+    energies = AllChem.MMFFOptimizeMoleculeConfs(mol, maxIters=2000)
+    ring = list(next(r for r in mol.GetRingInfo().AtomRings() if len(r) == 6))
+    order = [1]
+    while len(order) < 6:
+        order.append(next(n.GetIdx() for n in mol.GetAtomWithIdx(order[-1]).GetNeighbors()
+                          if n.GetIdx() in ring and n.GetIdx() not in order))
+    best = {}
+    for cid, (_, e) in zip(ids, energies):
+        pos = mol.GetConformer(cid).GetPositions()
+        chair, label = _chair_and_orientation(pos, order, 1, 0)
+        if chair and label != "?" and (label not in best or e < best[label][0]):
+            best[label] = (e, pos)
+    assert set(best) == {"axial", "equatorial"}, "embedding gave no chair of one kind: change the random seed"
+    out = {}
+    for label, (_, pos) in best.items():
+        a = Atoms([x.GetSymbol() for x in mol.GetAtoms()], positions=pos)
+        a.calc = TBLite(method="GFN2-xTB", verbosity=0)
+        BFGS(a, logfile=None).run(fmax=0.005, steps=500)
+        assert _chair_and_orientation(a.get_positions(), order, 1, 0) == (True, label)
+        a.calc = None
+        out[label] = a
+    return out
+
+
+@pytest.mark.slow
+def test_methylcyclohexane_axial_minus_equatorial_is_near_ccsdt():
+    # CCSD(T)/CBS Delta E(axial - equatorial) of methylcyclohexane: 1.75 kcal/mol (Weldon, Vickrey,
+    # Tschumper, J. Phys. Chem. A 2005, 109, 11073). B3LYP-D3(BJ)/def2-SVP single points on GFN2-xTB
+    # geometries are expected within 0.6 kcal/mol of it (tolerance chosen for a double-zeta basis, common
+    # practice).  Two single points: ~ 15 s each on one free core.
+    chairs = gfn2_methylcyclohexane_chairs()
+    res = {k: refine.single_point(a, 0, 1, {}, threads=1) for k, a in chairs.items()}
+    assert all(r["converged"] for r in res.values())
+    de = (res["axial"]["energy_hartree"] - res["equatorial"]["energy_hartree"]) * KCAL_PER_HARTREE
+    assert de == pytest.approx(1.75, abs=0.6)
