@@ -345,6 +345,87 @@ def calibrate_run(out_dir, config, temperature_k: float = REFERENCE_TEMPERATURE_
     cal.temperature_k = float(temperature_k)
     cal.points = [{k: (None if isinstance(v, float) and math.isnan(v) else v) for k, v in p.items()}
                   for p in points]
-    cal.note = (f"fitted on {cal.n} monosubstituted cyclohexanes of {cfg.get('_config_path', 'a reference run')}"
+    cfg_name = Path(cfg["_config_path"]).name if cfg.get("_config_path") else "a reference configuration"
+    cal.note = (f"fitted on {cal.n} monosubstituted cyclohexanes of {cfg_name}"
                 f" at {temperature_k:g} K; experimental values from chairqm/data/avalues.csv (from memory)")
     return cal
+
+
+# ------------------------------------------------------------------------------------------ presentation
+
+def parity_plot(calibration: Calibration, path, title: str | None = None) -> None:
+    """Parity plot (computed against experimental A-value, with the y = x line, the fitted correction and
+    the 95 % prediction band) written to `path` (PNG or SVG, by suffix) with matplotlib's Agg backend."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    pts = [p for p in calibration.points if p.get("used") == "used"]
+    x = np.array([p["computed_kcal"] for p in pts])
+    y = np.array([p["experimental_kcal"] for p in pts])
+    lo_err = y - np.array([p["range_low_kcal"] if p.get("range_low_kcal") is not None else p["experimental_kcal"] for p in pts])
+    hi_err = np.array([p["range_high_kcal"] if p.get("range_high_kcal") is not None else p["experimental_kcal"] for p in pts]) - y
+    lim = (min(0.0, x.min(), y.min()) - 0.3, max(x.max(), y.max()) + 0.5)
+    grid = np.linspace(lim[0], lim[1], 200)
+    band = np.array([apply(calibration, g) for g in grid])
+    fig, ax = plt.subplots(figsize=(6.0, 6.0), dpi=110)
+    ax.fill_between(grid, band[:, 1], band[:, 2], color="tab:blue", alpha=0.12,
+                    label=f"{calibration.confidence:.0%} prediction interval")
+    ax.plot(grid, grid, color="0.4", lw=1, ls="--", label="experimental = computed")
+    ax.plot(grid, band[:, 0], color="tab:blue", lw=1.5,
+            label=f"fit: exp = {calibration.intercept:.2f} + {calibration.slope:.2f}·computed")
+    ax.errorbar(x, y, yerr=[np.clip(lo_err, 0, None), np.clip(hi_err, 0, None)], fmt="o", ms=4,
+                color="tab:red", ecolor="0.6", elinewidth=0.8, capsize=2, label="reference groups (range)")
+    for p, xi, yi in zip(pts, x, y):
+        ax.annotate(p["group"], (xi, yi), textcoords="offset points", xytext=(4, 3), fontsize=6.5)
+    ax.set_xlim(lim)
+    ax.set_ylim(lim)
+    ax.set_aspect("equal")
+    ax.set_xlabel("computed A-value (kcal/mol)")
+    ax.set_ylabel("experimental A-value (kcal/mol)")
+    ax.set_title(title or f"{key_text(calibration.settings)}, {calibration.temperature_k:g} K", fontsize=9)
+    ax.legend(fontsize=7, loc="upper left")
+    fig.tight_layout()
+    fig.savefig(str(path))
+    plt.close(fig)
+
+
+def summary_text(calibration: Calibration) -> str:
+    """A few lines stating the statistics and the fitted correction."""
+    c = calibration
+    return (f"n = {c.n} ({key_text(c.settings)}, {c.temperature_k:g} K)\n"
+            f"MAE {c.mae_kcal:.3f}, mean signed error (computed - experimental) {c.mse_kcal:+.3f}, "
+            f"RMSE {c.rmse_kcal:.3f} kcal/mol\n"
+            f"{c.predicts}: intercept {c.intercept:.3f} kcal/mol, slope {c.slope:.3f}; R² {c.r_squared:.3f}; "
+            f"residual SD {c.residual_sd_kcal:.3f} kcal/mol; t(0.975, {c.n - 2}) = {c.t_quantile:.3f}")
+
+
+def main(argv=None) -> int:
+    """python -m chairqm.calibration OUT_DIR CONFIG [--save FILE] [--plot FILE]: fit and print a calibration."""
+    import argparse
+    import sys
+
+    ap = argparse.ArgumentParser(prog="python -m chairqm.calibration",
+                                 description="Fit a calibration from a finished run of a reference configuration.")
+    ap.add_argument("out_dir")
+    ap.add_argument("config")
+    ap.add_argument("--save", default=None, help="store the calibration in this list file (e.g. chairqm/data/calibration.json)")
+    ap.add_argument("--plot", default=None, help="write a parity plot (.png or .svg)")
+    args = ap.parse_args(argv)
+    try:
+        c = calibrate_run(args.out_dir, args.config)
+    except ChairqmError as exc:
+        print(f"chairqm: {exc}", file=sys.stderr)
+        return 2
+    t = c.table()
+    print(t[["molecule", "group", "experimental_kcal", "computed_kcal", "error_kcal", "used"]].to_string(index=False))
+    print(summary_text(c))
+    if args.save:
+        save(c, args.save)
+    if args.plot:
+        parity_plot(c, args.plot)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -119,24 +119,48 @@ def run_workflow(config_path, out, cores=2, until=None, extra=()) -> int:
         target = f"until_{until}"
     out = Path(out).resolve()
     out.mkdir(parents=True, exist_ok=True)
+    for m in plan.molecules:
+        if (out / m.name).is_symlink():
+            raise ChairqmError(f"{out / m.name} is a symbolic link: chairqm writes only inside the output folder; "
+                               "remove the link or choose another --out")
+    lock = _lock_output(out)
     import time
     from . import fileio
     fileio.write_json(out / ".chairqm" / "run-start.json",
                       {"epoch": time.time(), "iso": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "target": target})
     cmd = [sys.executable, "-m", "snakemake", target, "--snakefile", str(snakefile()), "--directory", str(out),
            "--config", f"chairqm_config={Path(config_path).resolve()}", "--cores", str(cores),
-           "--rerun-incomplete", "--keep-going", *(["--printshellcmds"] if os.environ.get("CHAIRQM_VERBOSE") else ["--quiet", "rules"]),
+           "--rerun-incomplete", "--keep-going", "--nolock", *(["--printshellcmds"] if os.environ.get("CHAIRQM_VERBOSE") else ["--quiet", "rules"]),
            *extra]
     env = dict(os.environ)
     env.setdefault("OMP_NUM_THREADS", "1")
     env.setdefault("OPENBLAS_NUM_THREADS", "1")
     env.setdefault("MKL_NUM_THREADS", "1")
-    proc = subprocess.run(cmd, env=env)
+    try:
+        proc = subprocess.run(cmd, env=env)
+    finally:
+        lock.close()
     if proc.returncode != 0:
         print(f"chairqm: the workflow stopped with an error (exit {proc.returncode}); "
               f"logs are in {out}/<molecule>/logs/", file=sys.stderr)
         return proc.returncode
     return _finish(out, plan, until)
+
+
+def _lock_output(out: Path):
+    """One chairqm run per output folder: an exclusive advisory lock on OUT/.chairqm/run.lock, released
+    by the kernel when the process dies, so a killed run never blocks the rerun (Snakemake's own lock
+    files would, so chairqm runs Snakemake with --nolock under this lock)."""
+    import fcntl
+    path = out / ".chairqm" / "run.lock"
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fh = open(path, "w")
+    try:
+        fcntl.flock(fh, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except OSError:
+        fh.close()
+        raise ChairqmError(f"another chairqm run is using {out}: wait for it to finish or choose another --out")
+    return fh
 
 
 def _finish(out: Path, plan, until) -> int:
@@ -150,6 +174,9 @@ def _finish(out: Path, plan, until) -> int:
         if failed:
             print(f"chairqm: {len(failed)} molecule(s) failed: {', '.join(failed)} (see summary.csv)", file=sys.stderr)
             return 1
+        return 0
+    if until is None:
+        print(f"chairqm: nothing was run to completion in {out} (dry run?)")
         return 0
     print(f"chairqm: stage '{until}' done; results in {out}")
     return 0

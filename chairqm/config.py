@@ -74,7 +74,7 @@ def _messages(cfg: dict, schema: dict) -> list[str]:
             msgs.append(f"{where}: give exactly one of 'smiles' or 'file'")
         elif err.validator == "pattern" and path and path[-1] == "name":
             msgs.append(f"{where}: unsafe molecule name {err.instance!r}: use letters, digits, '-', '_', '.' "
-                        "(no leading dot, no '/', at most 64 characters), because it becomes a folder name")
+                        "(starting with a letter, digit or '_'; no '/'; at most 64 characters), because it becomes a folder name")
         elif err.validator == "oneOf" and path and path[-1] == "solvent":
             msgs.append(f"{where}: solvent must be null or {{model: alpb|gbsa, name: <solvent>}}, got {err.instance!r}")
         else:

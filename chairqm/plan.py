@@ -26,13 +26,23 @@ class Plan:
         raise ChairqmError(f"no molecule named {name!r} in this configuration")
 
     def references_for(self, name: str) -> dict[str, str]:
-        """fragment -> reference molecule name, for the groups of `name` with no tabulated A-value."""
+        """fragment -> name of the molecule whose computed A-value serves as the QM-derived value, for the
+        groups of `name` that have no tabulated A-value. A monosubstituted cyclohexane defines its own
+        group's value and never waits for another molecule (so no two molecules can wait for each other)."""
+        from .additivity import needs_reference
         mol = self.get(name)
+        if _is_mono_cyclohexane(mol):
+            return {}
         refs = {}
-        for m in sorted(self.molecules, key=lambda m: not m.reference):
-            if m.name != name and len(m.substituents) == 1 and m.ring_elements == ["C"] * 6:
+        for m in sorted(self.molecules, key=lambda m: (not m.reference, m.name)):
+            if _is_mono_cyclohexane(m):
                 refs.setdefault(m.substituents[0].fragment, m.name)
-        return {s.fragment: refs[s.fragment] for s in mol.substituents if s.fragment in refs}
+        wanted = needs_reference(mol.substituents)
+        return {f: refs[f] for f in wanted if f in refs}
+
+
+def _is_mono_cyclohexane(m) -> bool:
+    return len(m.substituents) == 1 and m.ring_elements == ["C"] * 6
 
 
 def _slug(fragment: str) -> str:

@@ -536,6 +536,7 @@ def _load_molecule(out: Path, name: str, summary_rows: list[dict]) -> dict:
         "record": record if isinstance(record, dict) else {},
         "families": _rows(_read_csv(folder / "families.csv")),
         "conformers": _rows(_read_csv(folder / "conformers.csv")),
+        "minima": _rows(_read_csv(folder / "minima.csv")),
         "status": status, "reason": reason,
         "reference": bool((record or {}).get("reference", False)) if isinstance(record, dict) else False,
     }
@@ -854,6 +855,18 @@ def _conformer_table(m: dict, t) -> str:
             + f'<p class="muted">Q, θ, φ: Cremer–Pople puckering coordinates.{esc(note)}</p></details>')
 
 
+def _seed_failures(m: dict) -> str:
+    """Seeds whose optimisation or verification failed (from minima.csv): never counted, always shown."""
+    bad = [r for r in m.get("minima", []) if str(r.get("status", "")).strip() not in ("ok", "duplicate")]
+    if not bad:
+        return ""
+    rows = [[esc(r.get("seed", "")), esc(r.get("status", "")), esc(r.get("reason", ""))] for r in bad]
+    return ('<h3>Seeds that gave no usable minimum</h3>'
+            + _table(["seed", "status", "reason"], rows)
+            + f'<p class="muted">{len(bad)} seed(s) of this molecule are listed here and in minima.csv; '
+              'they are not counted in any population.</p>')
+
+
 def _molecule_section(m: dict) -> str:
     name = m["name"]
     head = f'<article class="card" id="{esc(_anchor(name))}"><h2>{esc(name)}'
@@ -910,6 +923,7 @@ def _molecule_section(m: dict) -> str:
         out.append('<p class="muted">No per-temperature results were recorded.</p>')
     elif lead is not None:
         out.append(_conformer_table(m, lead))
+    out.append(_seed_failures(m))
     out.append("</article>")
     return "".join(out)
 

@@ -886,6 +886,16 @@ STAGES = {"intake": stage_intake, "seeds": stage_seeds, "minima": stage_minima, 
           "ensemble": stage_ensemble, "report": stage_report}
 
 
+def _remove_partial_files(folder: Path, recursive: bool) -> None:
+    """Temporary files of an interrupted atomic write (`.NAME.XXXX.part`) are never results: remove them
+    before a stage of this molecule (or the report, at the top level) runs again."""
+    if not folder.is_dir():
+        return
+    for f in (folder.rglob(".*.part") if recursive else folder.glob(".*.part")):
+        if f.is_file() and not f.is_symlink():
+            f.unlink()
+
+
 def _fail_outputs(stage: str, name: str, message: str) -> None:
     """A molecule's stage broke unexpectedly: record why and write empty outputs with their headers, so
     the other molecules and the report go on and the failure is shown, never dropped."""
@@ -931,6 +941,7 @@ def main(argv=None):
     # ~15x slower, measured). Must happen before tblite/xtb are imported; workers inherit it.
     from .engine import set_threads
     set_threads(1)
+    _remove_partial_files(Path(args.molecule) if args.molecule else Path("."), recursive=True)
     try:
         cfg, plan = _context(args)
         if args.molecule and args.stage != "intake":

@@ -25,4 +25,4 @@ rule ensemble:
     log:
         "{mol}/logs/ensemble.log",
     shell:
-        "{STAGE} ensemble --config {CONFIG_PATH:q} --molecule {wildcards.mol} 2> {log:q}"
+        "{STAGE} ensemble --config {CONFIG_PATH:q} --molecule={wildcards.mol:q} 2> {log:q}"

@@ -10,4 +10,4 @@ rule intake:
     log:
         "{mol}/logs/intake.log",
     shell:
-        "{STAGE} intake --config {CONFIG_PATH:q} --molecule {wildcards.mol} 2> {log:q}"
+        "{STAGE} intake --config {CONFIG_PATH:q} --molecule={wildcards.mol:q} 2> {log:q}"

@@ -14,4 +14,4 @@ rule minima:
     log:
         "{mol}/logs/minima.log",
     shell:
-        "{STAGE} minima --config {CONFIG_PATH:q} --molecule {wildcards.mol} --threads {threads} 2> {log:q}"
+        "{STAGE} minima --config {CONFIG_PATH:q} --molecule={wildcards.mol:q} --threads {threads} 2> {log:q}"

@@ -13,4 +13,4 @@ rule refine:
     log:
         "{mol}/logs/refine.log",
     shell:
-        "{STAGE} refine --config {CONFIG_PATH:q} --molecule {wildcards.mol} --threads {threads} 2> {log:q}"
+        "{STAGE} refine --config {CONFIG_PATH:q} --molecule={wildcards.mol:q} --threads {threads} 2> {log:q}"

@@ -11,4 +11,4 @@ rule seeds:
     log:
         "{mol}/logs/seeds.log",
     shell:
-        "{STAGE} seeds --config {CONFIG_PATH:q} --molecule {wildcards.mol} 2> {log:q}"
+        "{STAGE} seeds --config {CONFIG_PATH:q} --molecule={wildcards.mol:q} 2> {log:q}"

@@ -15,4 +15,4 @@ rule thermo:
     log:
         "{mol}/logs/thermo.log",
     shell:
-        "{STAGE} thermo --config {CONFIG_PATH:q} --molecule {wildcards.mol} --threads {threads} 2> {log:q}"
+        "{STAGE} thermo --config {CONFIG_PATH:q} --molecule={wildcards.mol:q} --threads {threads} 2> {log:q}"

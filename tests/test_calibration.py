@@ -1,0 +1,218 @@
+"""Calibration of computed A-values: fit statistics, prediction intervals, the settings key and the shipped file."""
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from chairqm import calibration as cal
+from chairqm import config as cq_config
+from chairqm.errors import ChairqmError
+
+# Hand-worked example (worked by hand below): computed x = 1, 2, 3; experimental y = 1, 3, 2.
+#   x̄ = 2, ȳ = 2, Sxx = 2, Syy = 2, Sxy = (-1)(-1) + 0·1 + 1·0 = 1
+#   experimental = a + b·computed:  b = Sxy/Sxx = 0.5, a = ȳ - b·x̄ = 1
+#   fitted 1.5, 2.0, 2.5; residuals -0.5, 1.0, -0.5; SSR = 1.5; s = sqrt(1.5 / (3 - 2)) = 1.224745
+#   errors computed - experimental: 0, -1, 1 → MAE = 2/3, MSE = 0, RMSE = sqrt(2/3) = 0.816497
+#   R² = Sxy² / (Sxx·Syy) = 0.25
+#   reverse fit computed = a' + b'·experimental: b' = Sxy/Syy = 0.5, a' = x̄ - b'·ȳ = 1
+X3 = [1.0, 2.0, 3.0]
+Y3 = [1.0, 3.0, 2.0]
+# Student t quantiles t_{0.975, df} (two-sided 95 %), standard statistical tables (from memory):
+T975 = {1: 12.706, 3: 3.182, 10: 2.228, 25: 2.060}
+
+
+def test_fit_statistics_hand_worked():
+    c = cal.fit(X3, Y3)
+    assert c.n == 3
+    assert c.slope == pytest.approx(0.5, abs=1e-12)
+    assert c.intercept == pytest.approx(1.0, abs=1e-12)
+    assert c.residual_sd_kcal == pytest.approx(math.sqrt(1.5), abs=1e-12)
+    assert c.mae_kcal == pytest.approx(2.0 / 3.0, abs=1e-12)
+    assert c.mse_kcal == pytest.approx(0.0, abs=1e-12)
+    assert c.rmse_kcal == pytest.approx(math.sqrt(2.0 / 3.0), abs=1e-12)
+    assert c.r_squared == pytest.approx(0.25, abs=1e-12)
+    assert c.x_mean_kcal == pytest.approx(2.0) and c.sxx_kcal2 == pytest.approx(2.0)
+    assert c.reverse_fit["slope"] == pytest.approx(0.5) and c.reverse_fit["intercept"] == pytest.approx(1.0)
+
+
+def test_mean_signed_error_sign_is_computed_minus_experimental():
+    # computed all 0.3 kcal/mol above experiment: MSE = +0.3, MAE = RMSE = 0.3 (definition, common practice)
+    exp = [0.5, 1.0, 2.0, 3.0]
+    c = cal.fit([e + 0.3 for e in exp], exp)
+    assert c.mse_kcal == pytest.approx(0.3) and c.mae_kcal == pytest.approx(0.3) and c.rmse_kcal == pytest.approx(0.3)
+    assert c.slope == pytest.approx(1.0) and c.intercept == pytest.approx(-0.3)
+    assert c.residual_sd_kcal == pytest.approx(0.0, abs=1e-12)
+
+
+@pytest.mark.parametrize("df", sorted(T975))
+def test_t_quantile_matches_table(df):
+    rng = np.random.default_rng(df)
+    x = rng.uniform(0, 5, df + 2)
+    c = cal.fit(x, x + rng.normal(0, 0.3, x.size))
+    assert c.t_quantile == pytest.approx(T975[df], abs=6e-4)
+
+
+def test_prediction_interval_hand_worked():
+    c = cal.fit(X3, Y3)
+    t = T975[1]
+    s = math.sqrt(1.5)
+    # at x0 = x̄ = 2: ŷ = 2, half-width t·s·sqrt(1 + 1/3)
+    y, lo, hi = cal.apply(c, 2.0)
+    assert y == pytest.approx(2.0)
+    assert (hi - lo) / 2 == pytest.approx(t * s * math.sqrt(4.0 / 3.0), rel=1e-4)
+    # at x0 = 4: ŷ = 1 + 0.5·4 = 3, (x0 - x̄)²/Sxx = 4/2 = 2 → sqrt(1 + 1/3 + 2) = sqrt(10/3)
+    y, lo, hi = cal.apply(c, 4.0)
+    assert y == pytest.approx(3.0)
+    assert hi - y == pytest.approx(t * s * math.sqrt(10.0 / 3.0), rel=1e-4)
+    assert y - lo == pytest.approx(hi - y)
+
+
+def test_fit_and_interval_against_numpy_polyfit():
+    # an independent route: numpy.polyfit for the line, residual SD and the interval formula from its residuals
+    rng = np.random.default_rng(7)
+    x = rng.uniform(0.0, 5.0, 12)
+    y = 0.2 + 0.8 * x + rng.normal(0.0, 0.25, x.size)
+    c = cal.fit(x, y)
+    b, a = np.polyfit(x, y, 1)
+    resid = y - np.polyval([b, a], x)
+    s = math.sqrt((resid ** 2).sum() / (x.size - 2))
+    assert c.slope == pytest.approx(b, rel=1e-10) and c.intercept == pytest.approx(a, rel=1e-10, abs=1e-12)
+    assert c.residual_sd_kcal == pytest.approx(s, rel=1e-10)
+    x0 = 4.2
+    sxx = ((x - x.mean()) ** 2).sum()
+    half = T975[10] * s * math.sqrt(1 + 1 / x.size + (x0 - x.mean()) ** 2 / sxx)
+    yhat, lo, hi = cal.apply(c, x0)
+    assert yhat == pytest.approx(np.polyval([b, a], x0), rel=1e-10)
+    assert hi - yhat == pytest.approx(half, rel=2e-4)     # 2e-4: the table t is given to 4 figures
+
+
+def test_interval_covers_about_95_percent_of_new_points():
+    # frequentist meaning of a 95 % prediction interval (Draper and Smith 1998, §3.1): simulate fits and
+    # new points from a known line; the interval must cover close to 95 % of them
+    rng = np.random.default_rng(11)
+    hits, trials = 0, 2000
+    for _ in range(trials):
+        x = rng.uniform(0, 4, 8)
+        y = 0.5 + 0.9 * x + rng.normal(0, 0.3, 8)
+        c = cal.fit(x, y)
+        x0 = rng.uniform(0, 4)
+        y0 = 0.5 + 0.9 * x0 + rng.normal(0, 0.3)
+        _, lo, hi = cal.apply(c, x0)
+        hits += lo <= y0 <= hi
+    assert 0.93 <= hits / trials <= 0.97
+
+
+def test_fit_rejects_too_few_or_degenerate_points():
+    with pytest.raises(ChairqmError, match="at least 3"):
+        cal.fit([1.0, 2.0], [1.0, 2.0])
+    with pytest.raises(ChairqmError, match="all computed values are equal"):
+        cal.fit([1.0, 1.0, 1.0], [0.5, 1.0, 2.0])
+    with pytest.raises(ChairqmError, match="missing"):
+        cal.fit([1.0, float("nan"), 2.0, 3.0], [1.0, 2.0, 3.0, 4.0])
+
+
+def test_apply_missing_value_gives_nan():
+    c = cal.fit(X3, Y3)
+    assert all(math.isnan(v) for v in cal.apply(c, None))
+    assert all(math.isnan(v) for v in cal.apply(c, float("nan")))
+
+
+def _defaults():
+    return cq_config.validate({"molecules": [{"name": "m", "smiles": "CC1CCCCC1"}]})["settings"]
+
+
+def test_settings_key_defaults_and_normalisation():
+    k = cal.settings_key(_defaults())
+    assert k == {"engine": "tblite", "method": "GFN2-xTB", "solvent": None, "thermo_model": "qrrho",
+                 "frequency_scale": 1.0}
+    assert cal.settings_key({}) == k                       # missing settings take the schema defaults
+    assert cal.settings_key({"settings": _defaults()}) == k  # a whole configuration works too
+    w = cal.settings_key({"solvent": {"model": "ALPB", "name": "Water"}})
+    assert w["solvent"] == "alpb:water"
+    # settings that do not change free energies are not part of the key
+    assert cal.settings_key({**_defaults(), "temperatures_k": [200.0], "seeds": {"twist_boats": False}}) == k
+
+
+def test_load_matching_none_for_unmatched_settings(tmp_path):
+    path = tmp_path / "cal.json"
+    c = cal.fit(X3, Y3, settings=cal.settings_key({}))
+    cal.save(c, path)
+    assert cal.load_matching({}, path=path) is not None
+    for other in ({"engine": "xtb-python"}, {"method": "GFN1-xTB"},
+                  {"solvent": {"model": "alpb", "name": "water"}}, {"thermo": {"model": "rrho"}},
+                  {"thermo": {"frequency_scale": 0.97}}):
+        assert cal.load_matching(other, path=path) is None, other
+    assert cal.load_matching({}, path=tmp_path / "absent.json") is None
+
+
+def test_save_replaces_same_key_and_keeps_others(tmp_path):
+    path = tmp_path / "cal.json"
+    gas = cal.settings_key({})
+    water = cal.settings_key({"solvent": {"model": "alpb", "name": "water"}})
+    cal.save(cal.fit(X3, Y3, settings=gas), path)
+    cal.save(cal.fit(X3, [2.0, 4.0, 3.0], settings=water), path)
+    cal.save(cal.fit([1.0, 2.0, 3.0], [1.0, 2.0, 3.0], settings=gas), path)
+    items = cal.load_all(path)
+    assert len(items) == 2
+    assert cal.load_matching({}, path=path).slope == pytest.approx(1.0)
+    assert cal.load_matching({"solvent": {"model": "alpb", "name": "water"}}, path=path).intercept == pytest.approx(2.0)
+    with pytest.raises(ChairqmError):
+        cal.save(cal.fit(X3, Y3), path)          # no settings key: would match nothing
+
+
+def test_shipped_calibration_matches_default_settings():
+    c = cal.load_matching(_defaults())
+    assert c is not None, "chairqm/data/calibration.json has no calibration for tblite / GFN2-xTB / gas / qrrho / 1.0"
+    assert c.settings == {"engine": "tblite", "method": "GFN2-xTB", "solvent": None, "thermo_model": "qrrho",
+                          "frequency_scale": 1.0}
+    assert c.n >= 20 and c.temperature_k == pytest.approx(298.15)
+    # the stored statistics are those of the stored points (recomputed here from the table)
+    pts = pd.DataFrame(c.points)
+    used = pts[pts["used"] == "used"]
+    assert len(used) == c.n
+    again = cal.fit(used["computed_kcal"], used["experimental_kcal"])
+    for f in ("slope", "intercept", "residual_sd_kcal", "mae_kcal", "mse_kcal", "rmse_kcal"):
+        assert getattr(again, f) == pytest.approx(getattr(c, f), rel=1e-9, abs=1e-12), f
+    y, lo, hi = cal.apply(c, 1.5)
+    assert lo < y < hi
+
+
+def test_shipped_calibration_does_not_match_other_settings():
+    assert cal.load_matching({**_defaults(), "solvent": {"model": "alpb", "name": "water"}}) is None
+
+
+def test_calibrate_run_on_a_small_finished_run(tmp_path):
+    # a finished run folder made by hand: molecule.json from the intake stage's own perception, a summary.csv
+    from chairqm.avalues import a_value
+    from chairqm.molecule import perceive
+    mols = {"ref-exp-methyl": ("CC1CCCCC1", 1.9), "ref-exp-chloro": ("ClC1CCCCC1", 0.2),
+            "ref-exp-phenyl": ("c1ccc(cc1)C1CCCCC1", 2.5), "ref-exp-methoxy": ("COC1CCCCC1", 0.3),
+            "ref-exp-broken": ("BrC1CCCCC1", None), "ring-thp": ("CC1CCCCO1", 1.0)}
+    rows = []
+    for name, (smi, computed) in mols.items():
+        p = perceive({"name": name, "smiles": smi})[0]
+        (tmp_path / name).mkdir()
+        (tmp_path / name / "molecule.json").write_text(p.to_json())
+        rows.append({"molecule": name, "temperature_k": 298.15, "status": "ok" if computed is not None else "failed",
+                     "reason": "" if computed is not None else "minima stage failed", "a_value_kcal": computed})
+    pd.DataFrame(rows).to_csv(tmp_path / "summary.csv", index=False)
+    cfg = cq_config.validate({"molecules": [{"name": n, "smiles": s} for n, (s, _) in mols.items()]})
+    c = cal.calibrate_run(tmp_path, cfg)
+    t = c.table().set_index("molecule")
+    assert c.n == 4
+    assert t.loc["ref-exp-broken", "used"].startswith("run status failed")
+    assert t.loc["ring-thp", "used"] == "not a monosubstituted cyclohexane"
+    assert t.loc["ref-exp-methyl", "experimental_kcal"] == pytest.approx(a_value("[*]C"))
+    assert t.loc["ref-exp-chloro", "error_kcal"] == pytest.approx(0.2 - a_value("[*]Cl"))
+    used = ["ref-exp-methyl", "ref-exp-chloro", "ref-exp-phenyl", "ref-exp-methoxy"]
+    ref = cal.fit([mols[m][1] for m in used], [a_value(t.loc[m, "fragment"]) for m in used])
+    assert c.slope == pytest.approx(ref.slope) and c.residual_sd_kcal == pytest.approx(ref.residual_sd_kcal)
+    assert c.settings == cal.settings_key({})
+
+
+def test_calibrate_run_needs_a_finished_run(tmp_path):
+    cfg = cq_config.validate({"molecules": [{"name": "m", "smiles": "CC1CCCCC1"}]})
+    with pytest.raises(ChairqmError, match="summary.csv"):
+        cal.calibrate_run(tmp_path, cfg)
