@@ -123,11 +123,14 @@ def run_workflow(config_path, out, cores=2, until=None, extra=()) -> int:
         if (out / m.name).is_symlink():
             raise ChairqmError(f"{out / m.name} is a symbolic link: chairqm writes only inside the output folder; "
                                "remove the link or choose another --out")
-    lock = _lock_output(out)
+    dry = any(a in ("-n", "--dry-run", "--dryrun", "--summary", "--detailed-summary", "--list-changes")
+              for a in extra)
+    lock = None if dry else _lock_output(out)      # a dry run writes nothing and needs no lock
     import time
     from . import fileio
-    fileio.write_json(out / ".chairqm" / "run-start.json",
-                      {"epoch": time.time(), "iso": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "target": target})
+    if not dry:
+        fileio.write_json(out / ".chairqm" / "run-start.json",
+                          {"epoch": time.time(), "iso": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "target": target})
     cmd = [sys.executable, "-m", "snakemake", target, "--snakefile", str(snakefile()), "--directory", str(out),
            "--config", f"chairqm_config={Path(config_path).resolve()}", "--cores", str(cores),
            "--rerun-incomplete", "--keep-going", "--nolock", *(["--printshellcmds"] if os.environ.get("CHAIRQM_VERBOSE") else ["--quiet", "rules"]),
@@ -139,7 +142,8 @@ def run_workflow(config_path, out, cores=2, until=None, extra=()) -> int:
     try:
         proc = subprocess.run(cmd, env=env)
     finally:
-        lock.close()
+        if lock is not None:
+            lock.close()
     if proc.returncode != 0:
         print(f"chairqm: the workflow stopped with an error (exit {proc.returncode}); "
               f"logs are in {out}/<molecule>/logs/", file=sys.stderr)
