@@ -36,6 +36,11 @@ def _cpu_children() -> float:
     return ru.ru_utime + ru.ru_stime
 
 
+def _load() -> float:
+    import os
+    return round(os.getloadavg()[0], 2)
+
+
 def _timed(cmd, cwd=None, env=None) -> tuple[float, float]:
     cpu0, t0 = _cpu_children(), time.perf_counter()
     proc = subprocess.run(cmd, cwd=cwd, env=env, capture_output=True, text=True)
@@ -61,8 +66,8 @@ def molecules_axis(tmp: Path, counts, cores: int, settings: dict | None) -> list
         out = tmp / f"mol{n}"
         wall, cpu = _timed([C.CHAIRQM, "run", str(cfg), "--out", str(out), "--until", "minima", "--cores", str(cores)])
         seeds = sum(len(_read_csv(out / m["name"] / "minima.csv")) for m in mols)
-        rows.append({"axis": "molecules", "n": n, "seeds_optimised": seeds, "wall_s": wall, "cpu_s": cpu,
-                     "cpu_utilisation": cpu / wall})
+        rows.append({"axis": "molecules", "n": n, "workers": cores, "seeds_optimised": seeds, "wall_s": wall,
+                     "cpu_s": cpu, "cpu_utilisation": cpu / wall, "load_1min_after": _load()})
     return rows
 
 
@@ -71,7 +76,7 @@ def _read_csv(path):
     return pd.read_csv(path, keep_default_na=False)
 
 
-def seeds_axis(tmp: Path, counts, cores: int, settings: dict | None) -> list[dict]:
+def seeds_axis(tmp: Path, counts, cores: int, settings: dict | None, serial_check: bool = True) -> list[dict]:
     import os
     name = MANY_SEEDS[0]
     cfg = _write_config(tmp / "seeds.yaml", [{"name": name, "smiles": MANY_SEEDS[1]}], settings)
@@ -86,25 +91,30 @@ def seeds_axis(tmp: Path, counts, cores: int, settings: dict | None) -> list[dic
     if len(kept) < max(counts):
         raise SystemExit(f"{name} has {len(kept)} kept seeds, fewer than {max(counts)}")
     rows = []
-    for n in counts:
-        work = tmp / f"seeds{n}"
+    plan = [(n, cores) for n in counts]
+    if serial_check and cores > 1:
+        plan.append((max(counts), 1))      # the same work in one process: the parallel speed-up
+    for n, workers in plan:
+        work = tmp / f"seeds{n}-w{workers}"
         shutil.copytree(base, work)
         keep = set(kept["seed"].iloc[:n])
         sub = table[(table["status"] != "ok") | table["seed"].isin(keep)]
         sub.to_csv(work / name / "seeds.csv", index=False)
         shutil.rmtree(work / name / "work", ignore_errors=True)       # no cached optimisations
         wall, cpu = _timed([sys.executable, "-m", "chairqm.stages", "minima", "--config", str(cfg),
-                            "--molecule", name, "--threads", str(cores)], cwd=work, env=env)
+                            "--molecule", name, "--threads", str(workers)], cwd=work, env=env)
         got = len(_read_csv(work / name / "minima.csv"))
-        rows.append({"axis": "seeds", "n": n, "seeds_optimised": got, "wall_s": wall, "cpu_s": cpu,
-                     "cpu_utilisation": cpu / wall})
+        rows.append({"axis": "seeds" if workers == cores else "seeds, 1 worker", "n": n, "workers": workers,
+                     "seeds_optimised": got, "wall_s": wall, "cpu_s": cpu, "cpu_utilisation": cpu / wall,
+                     "load_1min_after": _load()})
     return rows
 
 
-def linearity(rows) -> dict:
+def linearity(rows, key: str = "wall_s") -> dict:
+    """Least-squares line key = a + b·n over the rows and the ratio of the last to the first increment per unit."""
     import numpy as np
     n = np.array([r["n"] for r in rows], dtype=float)
-    w = np.array([r["wall_s"] for r in rows], dtype=float)
+    w = np.array([r[key] for r in rows], dtype=float)
     if len(n) < 2:
         return {"intercept_s": float("nan"), "per_unit_s": float("nan"), "increment_ratio": float("nan")}
     b, a = np.polyfit(n, w, 1)
@@ -128,25 +138,31 @@ def main(argv=None) -> int:
         if args.quick:
             rows_m = [] if args.skip_workflow else molecules_axis(tmp, [1], args.cores,
                                                                   {"seeds": {"twist_boats": False}})
-            rows_s = seeds_axis(tmp, [1, 2], args.cores, None)
+            rows_s = seeds_axis(tmp, [1, 2], args.cores, None, serial_check=False)
         else:
             rows_m = molecules_axis(tmp, [1, 4, 16], args.cores, None)
             rows_s = seeds_axis(tmp, [1, 4, 16], args.cores, None)
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     C.print_machine(info)
-    print(f"# scaling: --cores {args.cores}; molecules axis = copies of {CHEAP[0]} (chairqm run --until minima); "
+    print(f"# scaling: --cores {args.cores}; load_1min_after = 1-minute load average of the whole machine after the point; molecules axis = copies of {CHEAP[0]} (chairqm run --until minima); "
           f"seeds axis = {MANY_SEEDS[0]} minima stage")
     rows = rows_m + rows_s
-    print(C.table(rows, ["axis", "n", "seeds_optimised", "wall_s", "cpu_s", "cpu_utilisation"], floatfmt=".3f"))
+    print(C.table(rows, ["axis", "n", "workers", "seeds_optimised", "wall_s", "cpu_s", "cpu_utilisation",
+                         "load_1min_after"], floatfmt=".3f"))
     fits = {}
-    for axis, rs in (("molecules", rows_m), ("seeds", rows_s)):
+    for axis, rs in (("molecules", rows_m), ("seeds", [r for r in rows_s if r["axis"] == "seeds"])):
         if not rs:
             continue
-        fits[axis] = linearity(rs)
-        f = fits[axis]
-        print(f"{axis}: wall = {f['intercept_s']:.2f} s + {f['per_unit_s']:.3f} s x n; "
-              f"increment ratio (last / first) {f['increment_ratio']:.2f} (1 = linear)")
+        for key in ("wall_s", "cpu_s"):
+            f = fits.setdefault(axis, {})[key] = linearity(rs, key)
+            print(f"{axis}: {key} = {f['intercept_s']:.2f} s + {f['per_unit_s']:.3f} s x n; "
+                  f"increment ratio (last / first) {f['increment_ratio']:.2f} (1 = linear)")
+    serial = [r for r in rows_s if r["axis"] != "seeds"]
+    if serial:
+        par = [r for r in rows_s if r["axis"] == "seeds" and r["n"] == serial[0]["n"]][0]
+        print(f"seeds, n = {par['n']}: {par['workers']} workers {par['wall_s']:.1f} s, 1 worker "
+              f"{serial[0]['wall_s']:.1f} s: speed-up {serial[0]['wall_s'] / par['wall_s']:.2f}")
     C.save_json(args.json, {"machine": info, "cores": args.cores, "rows": rows, "fits": fits})
     return 0
 

@@ -9,7 +9,10 @@ lowest that the baseline finds, and how many gradient calls does each route spen
 is decided by pooling both sets of optimised structures into one unique_minima call (heavy-atom RMSD ≤
 0.125 Å and |ΔE| ≤ 0.1 kcal/mol, mirror images merged for achiral molecules, the workflow's defaults).
 
-Full run (≈ 15–30 min on 2 cores):  nice -n 10 python benchmarks/seeding.py --json results/bench/seeding.json
+Each baseline minimum chairqm missed gets a finite-difference Hessian (chairqm.vibrations): one with an
+imaginary mode beyond 15 cm⁻¹ is a saddle point the optimiser stopped at (a flat rotor), not a missed minimum.
+
+Full run (≈ 15–30 min on 2 quiet cores):  nice -n 10 python benchmarks/seeding.py --json results/bench/seeding.json
 CI subset (seconds):               python benchmarks/seeding.py --quick
 """
 
@@ -89,6 +92,7 @@ def compare(p, ours: list[dict], base: list[dict], window_kcal: float, settings:
     e_ours = [g.energy_hartree for g in groups if any(m.startswith("q") for m in g.members)]
     e0 = min(e_base) if e_base else float("nan")
     missed, base_in_window, families_b, families_q, families_bw = [], 0, set(), set(), set()
+    missed_groups = []
     for g in groups:
         has_q = any(m.startswith("q") for m in g.members)
         has_b = any(m.startswith("b") for m in g.members)
@@ -103,16 +107,54 @@ def compare(p, ours: list[dict], base: list[dict], window_kcal: float, settings:
                 families_bw.add(f)
                 if not has_q:
                     missed.append(f"{f} at {rel:.2f}")
+                    missed_groups.append((g, rel))
     only_q = sum(1 for g in groups if all(m.startswith("q") for m in g.members))
     return {"minima_ours": len(e_ours), "minima_base": len(e_base), "base_in_window": base_in_window,
             "missed_in_window": len(missed), "missed_detail": missed,
             "families_base": len(families_b), "families_ours": len(families_q),
             "families_missed": sorted(families_b - families_q),
             "families_missed_in_window": sorted(families_bw - families_q), "only_ours": only_q,
-            "lowest_gap_kcal": ((min(e_ours) - e0) * KCAL_PER_HARTREE) if e_ours and e_base else float("nan")}
+            "lowest_gap_kcal": ((min(e_ours) - e0) * KCAL_PER_HARTREE) if e_ours and e_base else float("nan"),
+            "_missed_groups": missed_groups, "_records": {r.name: r for r in recs}, "_families": fam}
 
 
-def run(molecules, n_embed: int, window: float, workers: int, settings: dict) -> list[dict]:
+def check_missed(p, cmp: dict, settings: dict, threshold_cm1: float = 15.0) -> list[dict]:
+    """For each baseline minimum chairqm missed: its Hessian (chairqm.vibrations), lowest frequency and
+    number of imaginary modes beyond `threshold_cm1` (the thermo stage's default), and its nearest chairqm
+    minimum (heavy-atom RMSD, energy difference).  A structure with an imaginary mode is a saddle point
+    the optimiser stopped at, not a minimum chairqm failed to find."""
+    import tempfile
+
+    import numpy as np
+    from ase import Atoms
+
+    from chairqm import unique as cq_unique
+    from chairqm import vibrations as cq_vib
+    from chairqm.units import KCAL_PER_HARTREE
+
+    out = []
+    recs = cmp["_records"]
+    ours = [r for n, r in recs.items() if n.startswith("q")]
+    syms = [a.GetSymbol() for a in p.mol.GetAtoms()]
+    for g, rel in cmp["_missed_groups"]:
+        r = recs[g.name]
+        atoms = Atoms(syms, positions=np.asarray(r.positions))
+        with tempfile.TemporaryDirectory() as tmp:
+            h = cq_vib.hessian(atoms, C.calc_factory(p, settings)(), tmp)
+        freqs, _ = cq_vib.frequencies(h, atoms)
+        freqs = np.sort(np.asarray(freqs))
+        nearest = min(ours, key=lambda q: cq_unique.best_rmsd(p.mol, r.positions, q.positions)) if ours else None
+        out.append({"family": cmp["_families"][g.name], "rel_kcal": rel,
+                    "lowest_cm1": float(freqs[0]), "n_imaginary": int((freqs < -threshold_cm1).sum()),
+                    "nearest_ours_rmsd_a": cq_unique.best_rmsd(p.mol, r.positions, nearest.positions) if nearest else None,
+                    "nearest_ours_de_kcal": (r.energy_hartree - nearest.energy_hartree) * KCAL_PER_HARTREE if nearest else None,
+                    "xyz": "\n".join([str(len(syms)), f"{g.name} rel {rel:.3f} kcal/mol"] +
+                                     [f"{s} {x:.6f} {y:.6f} {z:.6f}" for s, (x, y, z) in zip(syms, r.positions)])})
+    return out
+
+
+def run(molecules, n_embed: int, window: float, workers: int, settings: dict, check: bool = False,
+        partial=None) -> list[dict]:
     from chairqm.seeds import build_seeds
     rows = []
     for name, smiles, kind in molecules:
@@ -127,6 +169,9 @@ def run(molecules, n_embed: int, window: float, workers: int, settings: dict) ->
         base = _map([(name, smiles, x, settings) for x in embeddings(p, n_embed)], workers)
         t_base = time.perf_counter() - t2
         cmp = compare(p, ours, base, window, settings)
+        checked = check_missed(p, cmp, settings) if check else []
+        for k in [k for k in cmp if k.startswith("_")]:
+            cmp.pop(k)
         g_ours = sum(r["gradient_calls"] for r in ours)
         g_base = sum(r["gradient_calls"] for r in base)
         rows.append({"molecule": name, "kind": kind, "seeds": len(seeds), "embeddings": len(base),
@@ -134,7 +179,12 @@ def run(molecules, n_embed: int, window: float, workers: int, settings: dict) ->
                      "failed_base": sum(r["status"] != "ok" for r in base),
                      **cmp, "grad_ours": g_ours, "grad_base": g_base,
                      "grad_ratio": g_ours / g_base if g_base else float("nan"),
-                     "seed_build_s": t_seed, "wall_ours_s": t_ours, "wall_base_s": t_base})
+                     "engine_ours_s": sum(r["engine_seconds"] for r in ours),
+                     "engine_base_s": sum(r["engine_seconds"] for r in base),
+                     "seed_build_s": t_seed, "wall_ours_s": t_ours, "wall_base_s": t_base,
+                     "missed_checked": checked})
+        if partial:
+            C.save_json(partial, {"rows": rows})
         print(f"# {name}: {len(seeds)} seeds, {len(base)} embeddings, missed {cmp['missed_in_window']}, "
               f"gradients {g_ours} vs {g_base}", file=sys.stderr, flush=True)
     return rows
@@ -142,21 +192,35 @@ def run(molecules, n_embed: int, window: float, workers: int, settings: dict) ->
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--quick", action="store_true", help="seconds-long CI subset (one molecule, 6 embeddings, one process)")
+    ap.add_argument("--quick", action="store_true", help="seconds-long CI subset (one molecule, 12 embeddings, one process)")
     ap.add_argument("--embeddings", type=int, default=None, help="random embeddings per molecule (default 200)")
-    ap.add_argument("--window", type=float, default=3.0, help="kcal/mol above the baseline's lowest minimum")
+    ap.add_argument("--window", type=float, default=None,
+                    help="kcal/mol above the baseline's lowest minimum (default 3; 10 with --quick, so that the "
+                         "twist-boat it leaves out is reported missed and the Hessian check runs)")
     ap.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
+    ap.add_argument("--only", default=None, help="comma-separated molecule names of the full set to run")
+    ap.add_argument("--no-check", action="store_true",
+                    help="do not compute Hessians of the baseline minima chairqm missed")
     ap.add_argument("--json", default=None, help="also write the results to this JSON file")
     args = ap.parse_args(argv)
     settings = C.default_settings()
     if args.quick:
-        mols, n = QUICK, args.embeddings or 6
+        mols, n = QUICK, args.embeddings or 12
         settings["seeds"]["twist_boats"] = False
         args.workers = 1                  # no worker start-up for a few optimisations
+        args.window = 10.0 if args.window is None else args.window
     else:
         mols, n = MOLECULES, args.embeddings or 200
+        if args.only:
+            want = args.only.split(",")
+            unknown = sorted(set(want) - {m[0] for m in MOLECULES})
+            if unknown:
+                raise SystemExit(f"--only: unknown molecule(s) {unknown}; known: {[m[0] for m in MOLECULES]}")
+            mols = [m for m in MOLECULES if m[0] in want]
+    args.window = 3.0 if args.window is None else args.window
     info = C.machine()
-    rows = run(mols, n, args.window, args.workers, settings)
+    rows = run(mols, n, args.window, args.workers, settings, check=not args.no_check,
+               partial=(args.json + ".partial") if args.json else None)
     C.print_machine(info)
     print(f"# seeding efficiency: chairqm seeds vs {n} random ETKDG embeddings (randomSeed {EMBED_SEED}); "
           f"{settings['method']} / {settings['engine']}, default optimiser, window {args.window:g} kcal/mol")
@@ -174,6 +238,11 @@ def main(argv=None) -> int:
     for r in rows:
         if r["missed_detail"] or r["families_missed"]:
             print(f"  {r['molecule']}: missed minima {r['missed_detail']}; missed families {r['families_missed']}")
+        for m in r.get("missed_checked", []):
+            kind = "saddle point" if m["n_imaginary"] else "minimum"
+            print(f"    {m['family']} at {m['rel_kcal']:.2f} kcal/mol: lowest frequency {m['lowest_cm1']:.1f} cm-1, "
+                  f"{m['n_imaginary']} imaginary -> {kind}; nearest chairqm minimum RMSD "
+                  f"{m['nearest_ours_rmsd_a']:.3f} A, dE {m['nearest_ours_de_kcal']:+.3f} kcal/mol")
     C.save_json(args.json, {"machine": info, "embeddings": n, "window_kcal": args.window,
                             "embed_seed": EMBED_SEED, "rows": rows})
     return 0

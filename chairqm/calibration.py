@@ -171,6 +171,15 @@ def apply(calibration: Calibration, value_kcal) -> tuple[float, float, float]:
     return (float(yhat), float(yhat - h), float(yhat + h))
 
 
+def applies_at(calibration: Calibration, temperature_k: float, tol_k: float = 0.5) -> bool:
+    """True if `temperature_k` is the calibration's temperature (within `tol_k` K).
+
+    A calibration fitted on 298.15 K A-values says nothing about the error at other temperatures, so
+    values at other temperatures should be reported uncalibrated.
+    """
+    return abs(float(temperature_k) - float(calibration.temperature_k)) <= tol_k
+
+
 # ------------------------------------------------------------------------------------------ settings key
 
 def _norm_solvent(solvent):
@@ -257,6 +266,14 @@ def settings_key_of(c: Calibration) -> dict | None:
         return None
     return {"engine": str(k["engine"]), "method": str(k["method"]), "solvent": _norm_solvent(k["solvent"]),
             "thermo_model": str(k["thermo_model"]), "frequency_scale": float(k["frequency_scale"])}
+
+
+def file_fingerprint(path=None) -> str:
+    """SHA-256 (first 16 hex digits) of the calibration file, '' if absent: pass it through a workflow
+    rule's params so results are re-made when the calibration changes."""
+    import hashlib
+    p = Path(path) if path is not None else packaged_path()
+    return hashlib.sha256(p.read_bytes()).hexdigest()[:16] if p.is_file() else ""
 
 
 def load_matching(settings: dict | None, path=None) -> Calibration | None:

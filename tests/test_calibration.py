@@ -216,3 +216,18 @@ def test_calibrate_run_needs_a_finished_run(tmp_path):
     cfg = cq_config.validate({"molecules": [{"name": "m", "smiles": "CC1CCCCC1"}]})
     with pytest.raises(ChairqmError, match="summary.csv"):
         cal.calibrate_run(tmp_path, cfg)
+
+
+def test_applies_only_at_the_calibration_temperature():
+    c = cal.fit(X3, Y3, settings=cal.settings_key({}))
+    assert cal.applies_at(c, 298.15) and cal.applies_at(c, 298.0)
+    assert not cal.applies_at(c, 250.0) and not cal.applies_at(c, 310.0)
+
+
+def test_file_fingerprint_changes_with_the_file(tmp_path):
+    path = tmp_path / "cal.json"
+    assert cal.file_fingerprint(path) == ""
+    cal.save(cal.fit(X3, Y3, settings=cal.settings_key({})), path)
+    first = cal.file_fingerprint(path)
+    cal.save(cal.fit(X3, [2.0, 4.0, 3.0], settings=cal.settings_key({})), path)
+    assert first and cal.file_fingerprint(path) != first
