@@ -108,18 +108,28 @@ def compare(p, ours: list[dict], base: list[dict], window_kcal: float, settings:
                 if not has_q:
                     missed.append(f"{f} at {rel:.2f}")
                     missed_groups.append((g, rel))
-    only_q = sum(1 for g in groups if all(m.startswith("q") for m in g.members))
+    # the lowest baseline minimum of each family chairqm lacks entirely (also outside the window)
+    lacking = families_b - families_q
+    for g in groups:
+        f = fam[g.name]
+        if f in lacking and all(m.startswith("b") for m in g.members):
+            lacking.discard(f)
+            if not any(h is g for h, _ in missed_groups):
+                missed_groups.append((g, (g.energy_hartree - e0) * KCAL_PER_HARTREE))
+    only_q_groups = [g for g in groups if all(m.startswith("q") for m in g.members)]
+    only_q = len(only_q_groups)
     return {"minima_ours": len(e_ours), "minima_base": len(e_base), "base_in_window": base_in_window,
             "missed_in_window": len(missed), "missed_detail": missed,
             "families_base": len(families_b), "families_ours": len(families_q),
             "families_missed": sorted(families_b - families_q),
             "families_missed_in_window": sorted(families_bw - families_q), "only_ours": only_q,
             "lowest_gap_kcal": ((min(e_ours) - e0) * KCAL_PER_HARTREE) if e_ours and e_base else float("nan"),
-            "_missed_groups": missed_groups, "_records": {r.name: r for r in recs}, "_families": fam}
+            "_missed_groups": missed_groups, "_only_ours": only_q_groups, "_e0": e0, "_records": {r.name: r for r in recs}, "_families": fam}
 
 
 def check_missed(p, cmp: dict, settings: dict, threshold_cm1: float = 15.0) -> list[dict]:
-    """For each baseline minimum chairqm missed: its Hessian (chairqm.vibrations), lowest frequency and
+    """For each baseline minimum chairqm missed within the window, the lowest baseline minimum of each
+    family chairqm lacks, and each chairqm minimum the baseline did not find: its Hessian (chairqm.vibrations), lowest frequency and
     number of imaginary modes beyond `threshold_cm1` (the thermo stage's default), and its nearest chairqm
     minimum (heavy-atom RMSD, energy difference).  A structure with an imaginary mode is a saddle point
     the optimiser stopped at, not a minimum chairqm failed to find."""
@@ -132,24 +142,35 @@ def check_missed(p, cmp: dict, settings: dict, threshold_cm1: float = 15.0) -> l
     from chairqm import vibrations as cq_vib
     from chairqm.units import KCAL_PER_HARTREE
 
-    out = []
     recs = cmp["_records"]
     ours = [r for n, r in recs.items() if n.startswith("q")]
     syms = [a.GetSymbol() for a in p.mol.GetAtoms()]
-    for g, rel in cmp["_missed_groups"]:
-        r = recs[g.name]
+
+    def lowest(r):
         atoms = Atoms(syms, positions=np.asarray(r.positions))
         with tempfile.TemporaryDirectory() as tmp:
             h = cq_vib.hessian(atoms, C.calc_factory(p, settings)(), tmp)
-        freqs, _ = cq_vib.frequencies(h, atoms)
-        freqs = np.sort(np.asarray(freqs))
+        freqs = np.sort(np.asarray(cq_vib.frequencies(h, atoms)[0]))
+        return float(freqs[0]), int((freqs < -threshold_cm1).sum())
+
+    out = []
+    for g, rel in cmp["_missed_groups"]:
+        r = recs[g.name]
+        low, nimag = lowest(r)
         nearest = min(ours, key=lambda q: cq_unique.best_rmsd(p.mol, r.positions, q.positions)) if ours else None
-        out.append({"family": cmp["_families"][g.name], "rel_kcal": rel,
-                    "lowest_cm1": float(freqs[0]), "n_imaginary": int((freqs < -threshold_cm1).sum()),
+        out.append({"side": "baseline only", "family": cmp["_families"][g.name], "rel_kcal": rel,
+                    "lowest_cm1": low, "n_imaginary": nimag,
                     "nearest_ours_rmsd_a": cq_unique.best_rmsd(p.mol, r.positions, nearest.positions) if nearest else None,
                     "nearest_ours_de_kcal": (r.energy_hartree - nearest.energy_hartree) * KCAL_PER_HARTREE if nearest else None,
                     "xyz": "\n".join([str(len(syms)), f"{g.name} rel {rel:.3f} kcal/mol"] +
                                      [f"{s} {x:.6f} {y:.6f} {z:.6f}" for s, (x, y, z) in zip(syms, r.positions)])})
+    for g in cmp["_only_ours"]:
+        r = recs[g.name]
+        low, nimag = lowest(r)
+        out.append({"side": "chairqm only", "family": cmp["_families"][g.name],
+                    "rel_kcal": (g.energy_hartree - cmp["_e0"]) * KCAL_PER_HARTREE,
+                    "lowest_cm1": low, "n_imaginary": nimag, "nearest_ours_rmsd_a": None,
+                    "nearest_ours_de_kcal": None, "xyz": ""})
     return out
 
 
@@ -239,10 +260,26 @@ def main(argv=None) -> int:
         if r["missed_detail"] or r["families_missed"]:
             print(f"  {r['molecule']}: missed minima {r['missed_detail']}; missed families {r['families_missed']}")
         for m in r.get("missed_checked", []):
+            if m["side"] != "baseline only":
+                continue
             kind = "saddle point" if m["n_imaginary"] else "minimum"
             print(f"    {m['family']} at {m['rel_kcal']:.2f} kcal/mol: lowest frequency {m['lowest_cm1']:.1f} cm-1, "
                   f"{m['n_imaginary']} imaginary -> {kind}; nearest chairqm minimum RMSD "
                   f"{m['nearest_ours_rmsd_a']:.3f} A, dE {m['nearest_ours_de_kcal']:+.3f} kcal/mol")
+    print("\nHessian check (imaginary = below -15 cm-1):")
+    chk = []
+    for r in rows:
+        mc = r.get("missed_checked", [])
+        b = [m for m in mc if m["side"] == "baseline only"]
+        q = [m for m in mc if m["side"] == "chairqm only"]
+        bw = [m for m in b if m["rel_kcal"] <= args.window + 1e-9]
+        chk.append({"molecule": r["molecule"],
+                    "missed_in_window": len(bw), "of_which_saddles": sum(m["n_imaginary"] > 0 for m in bw),
+                    "missed_true_minima": sum(m["n_imaginary"] == 0 for m in bw),
+                    "family_reps_checked": len(b) - len(bw),
+                    "family_reps_saddles": sum(m["n_imaginary"] > 0 for m in b if m not in bw),
+                    "chairqm_only": len(q), "chairqm_only_saddles": sum(m["n_imaginary"] > 0 for m in q)})
+    print(C.table(chk))
     C.save_json(args.json, {"machine": info, "embeddings": n, "window_kcal": args.window,
                             "embed_seed": EMBED_SEED, "rows": rows})
     return 0
