@@ -263,7 +263,7 @@ def _stereo(mol, name, enumerate_stereo):
     out, seen = [], set()
     for iso in EnumerateStereoisomers(mol, options=opts):
         smi = Chem.MolToSmiles(Chem.RemoveHs(iso))
-        mirror = Chem.MolToSmiles(Chem.RemoveHs(_mirror(iso)))
+        mirror = Chem.MolToSmiles(Chem.RemoveHs(mirror_image(iso)))
         key = min(smi, mirror)      # enantiomers have equal conformer energies: keep one of each pair
         if key in seen:
             continue
@@ -272,7 +272,8 @@ def _stereo(mol, name, enumerate_stereo):
     return out
 
 
-def _mirror(mol):
+def mirror_image(mol):
+    """The molecule with every tetrahedral centre inverted (its enantiomer; a meso form maps to itself)."""
     m = Chem.Mol(mol)
     for a in m.GetAtoms():
         t = a.GetChiralTag()

@@ -49,6 +49,7 @@ from scipy.optimize import linear_sum_assignment
 
 from . import ring as ringgeo
 from .errors import ChairqmError
+from .molecule import mirror_image
 
 RDLogger.DisableLog("rdApp.*")
 
@@ -237,13 +238,7 @@ def _symmetries(work, heavy, ring):
         a.SetIntProp("_cq", a.GetIdx())
     hmol = Chem.RemoveHs(tagged, sanitize=False)
     idx = [a.GetIntProp("_cq") for a in hmol.GetAtoms()]
-    mirror = Chem.Mol(hmol)
-    for a in mirror.GetAtoms():
-        t = a.GetChiralTag()
-        if t == Chem.ChiralType.CHI_TETRAHEDRAL_CW:
-            a.SetChiralTag(Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
-        elif t == Chem.ChiralType.CHI_TETRAHEDRAL_CCW:
-            a.SetChiralTag(Chem.ChiralType.CHI_TETRAHEDRAL_CW)
+    mirror = mirror_image(hmol)
     ring_set = set(ring)
     nh = [len([n for n in work.GetAtomWithIdx(i).GetNeighbors() if n.GetAtomicNum() == 1])
           for i in range(work.GetNumAtoms())]
