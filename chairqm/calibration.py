@@ -23,7 +23,7 @@ A calibration compares the A-values a run computed for monosubstituted cyclohexa
   the Student t quantile from scipy.stats.t.
 
 Calibrations are keyed by the settings that change computed free energies (:func:`settings_key`:
-method, engine, solvent, thermochemistry model and frequency scale).  The package ships a list of them
+method, engine, solvent, thermochemistry model, frequency scale and, for refined runs, the DFT level).  The package ships a list of them
 in chairqm/data/calibration.json; :func:`load_matching` returns the one whose key equals a run's key, or
 None — a run with no matching calibration gets no interval rather than an invented one.
 Energies here are in kcal/mol (A-values are free-energy differences reported in kcal/mol).
@@ -205,25 +205,47 @@ def settings_key(settings: dict | None) -> dict:
         s = dict(s["settings"])
     thermo = s.get("thermo") or {}
     scale = thermo.get("frequency_scale", _DEFAULTS["frequency_scale"])
+    solvent = _norm_solvent(s.get("solvent", _DEFAULTS["solvent"]))
     return {"engine": str(s.get("engine", _DEFAULTS["engine"])),
             "method": str(s.get("method", _DEFAULTS["method"])),
-            "solvent": _norm_solvent(s.get("solvent", _DEFAULTS["solvent"])),
+            "solvent": solvent,
             "thermo_model": str(thermo.get("model", _DEFAULTS["thermo_model"])),
-            "frequency_scale": round(float(scale), 6)}
+            "frequency_scale": round(float(scale), 6),
+            "refine": _norm_refine(s.get("refine"), solvent)}
+
+
+def _norm_refine(block, solvent=None):
+    """The DFT level of a refined run as one string, None for an unrefined run (or a stored calibration
+    that predates refinement).  Only what changes the refined energies enters: functional, basis,
+    dispersion, density fitting and, with a solvent, the solvent model.  A string is taken as already
+    normalised (a stored key)."""
+    if block is None:
+        return None
+    if isinstance(block, str):
+        return block
+    from . import refine as cq_refine
+    r = cq_refine.resolve(block)
+    text = f"{r['functional']}-{r['dispersion'].upper()}/{r['basis']}".lower()
+    if not r["density_fitting"]:
+        text += " no-df"
+    if solvent is not None:
+        text += f" {r['solvent_model']}"
+    return text
 
 
 def key_text(key: dict) -> str:
     """A one-line description of a settings key, for reports and messages."""
     k = settings_key(key) if "thermo_model" not in key else key
-    return (f"{k['method']} with {k['engine']}, {k['solvent'] or 'gas phase'}, "
+    text = (f"{k['method']} with {k['engine']}, {k['solvent'] or 'gas phase'}, "
             f"{k['thermo_model']}, frequency scale {k['frequency_scale']:g}")
+    return text + (f", DFT single points {k['refine']}" if k.get("refine") else "")
 
 
 def _same_key(a: dict | None, b: dict | None) -> bool:
     if a is None or b is None:
         return False
     return (a["engine"] == b["engine"] and a["method"] == b["method"] and a["solvent"] == b["solvent"]
-            and a["thermo_model"] == b["thermo_model"]
+            and a["thermo_model"] == b["thermo_model"] and a.get("refine") == b.get("refine")
             and math.isclose(float(a["frequency_scale"]), float(b["frequency_scale"]), abs_tol=1e-6))
 
 
@@ -265,7 +287,8 @@ def settings_key_of(c: Calibration) -> dict | None:
     if any(name not in k for name in _DEFAULTS):
         return None
     return {"engine": str(k["engine"]), "method": str(k["method"]), "solvent": _norm_solvent(k["solvent"]),
-            "thermo_model": str(k["thermo_model"]), "frequency_scale": float(k["frequency_scale"])}
+            "thermo_model": str(k["thermo_model"]), "frequency_scale": float(k["frequency_scale"]),
+            "refine": _norm_refine(k.get("refine"))}
 
 
 def file_fingerprint(path=None) -> str:

@@ -248,11 +248,15 @@ def cmd_avalue(args, extra) -> int:
 def cmd_calibrate(args, extra) -> int:
     """Run the reference set, fit computed against experimental A-values, store the calibration."""
     from . import calibration as cq_cal
-    out = Path(args.out or default_out(args.config))
-    code = run_workflow(args.config, out, cores=args.cores, until=None, extra=extra)
+    config = args.config
+    out = Path(args.out or (default_out(config) if args.refine is None
+                            else Path(str(default_out(config)) + "-refined")))
+    if args.refine is not None:
+        config = _with_refinement(config, args.refine, out)
+    code = run_workflow(config, out, cores=args.cores, until=None, extra=extra)
     if not (out / "summary.csv").is_file():
         return code or 1
-    cal = cq_cal.calibrate_run(out, args.config)
+    cal = cq_cal.calibrate_run(out, config)
     print(cal.table()[["molecule", "group", "experimental_kcal", "computed_kcal", "error_kcal", "used"]]
           .to_string(index=False))
     print(cq_cal.summary_text(cal))
@@ -264,6 +268,33 @@ def cmd_calibrate(args, extra) -> int:
         print("chairqm: to use it for later runs with these settings, rerun with "
               f"--save {cq_cal.packaged_path()}")
     return code
+
+
+def _with_refinement(config_path, refine_text: str, out: Path) -> Path:
+    """Write OUT/calibrate-config.yaml: the configuration with settings.refine set from `refine_text` (a YAML
+    mapping such as '{basis: def2-TZVP}'; '{}' takes every default), and return its path."""
+    import yaml
+    from . import fileio
+    try:
+        block = yaml.safe_load(refine_text) if refine_text.strip() else {}
+    except yaml.YAMLError as exc:
+        raise ChairqmError(f"--refine {refine_text!r} is not a YAML mapping ({exc}): write e.g. "
+                           "--refine '{basis: def2-TZVP}'") from None
+    if block is None:
+        block = {}
+    if not isinstance(block, dict):
+        raise ChairqmError(f"--refine {refine_text!r} must be a mapping of settings.refine keys, e.g. "
+                           "--refine '{functional: r2SCAN}'")
+    raw = yaml.safe_load(Path(config_path).read_text())
+    if not isinstance(raw, dict):
+        raise ChairqmError(f"{config_path}: not a configuration mapping")
+    raw.setdefault("settings", {})
+    raw["settings"] = dict(raw["settings"] or {}, refine=block)
+    out.mkdir(parents=True, exist_ok=True)
+    target = out / "calibrate-config.yaml"
+    fileio.write_text(target, f"# {config_path} with settings.refine = {block!r} (chairqm calibrate --refine)\n"
+                      + yaml.safe_dump(raw, sort_keys=False))
+    return target
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -291,6 +322,10 @@ def build_parser() -> argparse.ArgumentParser:
     k.add_argument("--out", help="output folder (default results/<config name>)")
     k.add_argument("--cores", type=int, default=2)
     k.add_argument("--save", help="calibration list file to add the result to (default OUT/calibration.json)")
+    k.add_argument("--refine", nargs="?", const="{}", default=None, metavar="SETTINGS",
+                   help="calibrate DFT-refined values: add settings.refine to the configuration (no value: the "
+                        "defaults; or a YAML mapping such as '{basis: def2-TZVP}'); output default "
+                        "results/<config name>-refined")
     return ap
 
 

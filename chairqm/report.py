@@ -1,14 +1,22 @@
 """The run report: one self-contained HTML page (inline CSS and SVG, no network) a chemist reads after a run.
 
 `write_report(out_dir, run_info)` reads the result files of a run's output folder — `summary.csv` and,
-per molecule, `molecule.json`, `families.csv`, `conformers.csv`, `ensemble.json` — and writes
-`report.html` next to them. Nothing is computed here beyond formatting: every number on the page is
-read from those files, so the page and the machine-readable results cannot disagree.
+per molecule, `molecule.json`, `families.csv`, `conformers.csv`, `ensemble.json` (and, after a DFT
+refinement, `refine.csv` and `refine.json`) — and writes `report.html` next to them. Nothing is
+computed here beyond formatting: every number on the page is read from those files (the one exception:
+a refined molecule's GFN2-xTB-only chair gap is given the sign of the refined chairs' axis in the
+additive table), so the page and the machine-readable results cannot disagree.
 
 Figures are drawn with matplotlib's object API (`matplotlib.figure.Figure`, rendered by the SVG
 backend; pyplot and interactive backends are never touched) and the 2-D depictions with RDKit's
 `rdMolDraw2D`. Both are inlined as SVG text; SVG ids are derived from a fixed salt per figure so that
 the same inputs give the same bytes.
+
+Refined runs (settings.refine): the headline numbers of a refined molecule are composite free energies,
+a DFT single point on the GFN2-xTB minimum plus the GFN2-xTB thermal correction, written
+`DFT//GFN2-xTB` on the page (REFINED_TAG); wherever such a number appears, the GFN2-xTB-only value the
+run also recorded stands beside it, tagged GFN2_TAG. Molecules of a refined run whose single points all
+failed carry GFN2-xTB values only and say so. Unrefined runs render without any of these columns.
 
 Sign convention assumed for the additive comparison: `additive.dg_kcal` and `chair_dg_kcal` are the
 same difference of the two chair families (whatever its orientation); equal signs mean the additive
@@ -37,6 +45,10 @@ RING_FORM_COLOURS = {
 }
 LINE_COLOURS = ["#23707a", "#d08a2c", "#5b57a6", "#9b3f6e", "#6f9a3a", "#b8573a", "#3f8fc4", "#7c8088"]
 MAX_CURVES = 7               # families drawn individually in the population plot; the rest are summed
+
+REFINED_TAG = "DFT//GFN2-xTB"          # DFT single point at the GFN2-xTB geometry + GFN2-xTB thermal correction
+GFN2_TAG = "GFN2-xTB only"             # the same quantity without the DFT single points
+_DISPERSION_SUFFIX = {"d3bj": "-D3(BJ)", "d3zero": "-D3(0)"}
 
 CSS = """
 :root { --ink:#24262b; --muted:#62666e; --rule:#d9d6cf; --paper:#f7f5f0; --card:#ffffff;
@@ -531,15 +543,32 @@ def _load_molecule(out: Path, name: str, summary_rows: list[dict]) -> dict:
         status, reason = "failed", "no results were written for this molecule (ensemble.json and summary rows missing)"
     if status == "failed" and not reason:
         reason = "no reason recorded"
+    families = _rows(_read_csv(folder / "families.csv"))
+    conformers = _rows(_read_csv(folder / "conformers.csv"))
+    refine_info = _read_json(folder / "refine.json")
     return {
         "name": name, "folder": folder, "rows": rows, "ensemble": ens if isinstance(ens, dict) else {},
         "record": record if isinstance(record, dict) else {},
-        "families": _rows(_read_csv(folder / "families.csv")),
-        "conformers": _rows(_read_csv(folder / "conformers.csv")),
+        "families": families,
+        "conformers": conformers,
         "minima": _rows(_read_csv(folder / "minima.csv")),
+        "refine_rows": _rows(_read_csv(folder / "refine.csv")),
+        "refine_info": refine_info if isinstance(refine_info, dict) else {},
+        "refined": _is_refined(ens, rows, families, conformers),
         "status": status, "reason": reason,
         "reference": bool((record or {}).get("reference", False)) if isinstance(record, dict) else False,
     }
+
+
+def _is_refined(ens, rows, families, conformers) -> bool:
+    """Whether this molecule's headline free energies are DFT-refined (ensemble.json says so; for older or
+    partial folders, the summary's `refined` column or the GFN2-xTB side columns of its tables)."""
+    if isinstance(ens, dict) and "refined" in ens:
+        return _truthy(ens["refined"])
+    if any("refined" in r and not _missing(r["refined"]) for r in rows):
+        return any(_truthy(r.get("refined")) for r in rows)
+    return (any("g_rel_unrefined_kcal" in f for f in families)
+            or any(_truthy(c.get("refined_single_point")) for c in conformers))
 
 
 def _temperatures(m: dict) -> list:
@@ -565,6 +594,7 @@ def _entry(m: dict, t) -> dict:
     ens = next((e for e in m["ensemble"].get("temperatures") or []
                 if isinstance(e, dict) and _same_t(e.get("temperature_k"), t)), {})
     add = ens.get("additive") if isinstance(ens.get("additive"), dict) else {}
+    un = ens.get("unrefined") if isinstance(ens.get("unrefined"), dict) else {}
     def pick(key, *alt):
         for src in (ens, row):
             for k in (key,) + alt:
@@ -590,23 +620,163 @@ def _entry(m: dict, t) -> dict:
         "low": _num(row.get("interval_low_kcal")),
         "high": _num(row.get("interval_high_kcal")),
         "status": row.get("status", "ok"),
+        "unrefined": _unrefined_entry(un, row),
     }
+
+
+def _unrefined_entry(un: dict, row: dict):
+    """The GFN2-xTB-only values a refined run recorded beside the refined ones (ensemble.json's `unrefined`
+    entry, else the summary's *_unrefined_kcal columns); None when there are none."""
+    keys = ("chair_dg_unrefined_kcal", "a_value_unrefined_kcal")
+    if not un and not any(not _missing(row.get(k)) for k in keys):
+        return None
+    def pick(key, col):
+        v = un.get(key)
+        return _num(v) if not _missing(v) else _num(row.get(col))
+    return {
+        "preferred_family": un.get("preferred_family") if not _missing(un.get("preferred_family")) else None,
+        "chair_dg_kcal": pick("chair_dg_kcal", "chair_dg_unrefined_kcal"),
+        "a_value_kcal": pick("a_value_kcal", "a_value_unrefined_kcal"),
+        "twist_boat_population": _num(un.get("twist_boat_population")),
+        "flag": _truthy(un["flag"]) if not _missing(un.get("flag")) else None,
+        "flag_reason": un.get("flag_reason") or "",
+    }
+
+
+# ------------------------------------------------------------------------------------------ refinement
+
+def _refine_settings(run_info: dict, mols: list[dict]):
+    """The DFT refinement settings of the run, or None when the run neither asked for nor recorded one.
+
+    The resolved settings a molecule's refine.json records win over the configuration's `settings.refine`
+    (which may be partial, e.g. {}); a key found in neither takes the package default, as the run did."""
+    block = (run_info.get("settings") or {}).get("refine")
+    recorded = next((m["refine_info"]["settings"] for m in mols
+                     if isinstance(m["refine_info"].get("settings"), dict)), None)
+    if block is None and recorded is None and not any(m["refined"] or m["refine_rows"] for m in mols):
+        return None
+    rs = {}
+    try:
+        from .refine import DEFAULTS
+        rs.update(DEFAULTS)
+    except Exception:           # the page must not depend on the refinement module importing
+        pass
+    if isinstance(block, dict):
+        rs.update(block)
+    if recorded:
+        rs.update(recorded)
+    return rs
+
+
+def dft_level(rs: dict) -> str:
+    """'PBE0-D3(BJ)/def2-TZVP' — functional, dispersion correction and basis of the single points (plain text)."""
+    functional = str(rs.get("functional") or "DFT (functional not recorded)")
+    disp = _DISPERSION_SUFFIX.get(str(rs.get("dispersion", "")).strip().lower(), "")
+    basis = rs.get("basis")
+    return f"{functional}{disp}/{basis}" if basis else f"{functional}{disp}"
+
+
+def _dft_words(rs: dict, solvent) -> str:
+    """The single-point level in a sentence (plain text, not escaped)."""
+    disp = str(rs.get("dispersion", "")).strip().lower()
+    parts = [{"d3bj": "D3 dispersion with Becke–Johnson damping", "d3zero": "D3 dispersion with zero damping",
+              "none": "no dispersion correction"}.get(disp, f"dispersion {disp}" if disp else "dispersion not recorded")]
+    if "density_fitting" in rs:
+        parts.append("density fitting" if _truthy(rs["density_fitting"]) else "no density fitting")
+    if solvent:
+        model = str(rs.get("solvent_model", "")).strip().lower()
+        parts.append({"gfn2-delta": "gas-phase single points plus the GFN2-xTB solvation free energy",
+                      "pcm": "C-PCM continuum solvent inside the SCF"}.get(model, f"solvent model {model or 'not recorded'}"))
+    return f"{dft_level(rs)} ({', '.join(parts)})"
+
+
+def _refine_status(row: dict | None, conf: dict, refined: bool) -> str:
+    """The conformer table's 'DFT single point' cell (HTML)."""
+    shifted = " — mean DFT − GFN2-xTB shift used" if refined else ""
+    if row is None:
+        if _truthy(conf.get("refined_single_point")):
+            return "yes"
+        if not _missing(conf.get("refined_single_point")):
+            return esc("no" + shifted)
+        return "—"
+    status = str(row.get("status", "")).strip()
+    if status == "ok":
+        return "yes (ok)"
+    if status == "not-selected":
+        return esc("not selected" + shifted)
+    reason = row.get("reason") or "no reason recorded"
+    return f'<span class="badge flag">{esc(status or "unknown")}</span> {esc(reason)}{esc(shifted)}'
+
+
+def _refine_block(m: dict, rs: dict, solvent) -> str:
+    """Per molecule: what the DFT refinement did — single points, failures with their reasons, DFT time."""
+    rows = m["refine_rows"]
+    info = m["refine_info"]
+    own = dict(rs)
+    if isinstance(info.get("settings"), dict):
+        own.update(info["settings"])
+    out = ["<h3>DFT refinement</h3>"]
+    n_ok = sum(1 for r in rows if str(r.get("status", "")).strip() == "ok")
+    n_skip = sum(1 for r in rows if str(r.get("status", "")).strip() == "not-selected")
+    failed = [r for r in rows if str(r.get("status", "")).strip() not in ("ok", "not-selected")]
+    if m["refined"]:
+        out.append(f"<p>Free energies of this molecule are {esc(REFINED_TAG)}: {esc(_dft_words(own, solvent))} "
+                   "single points on the GFN2-xTB minima plus the GFN2-xTB thermal corrections. Conformers "
+                   "without their own single point carry the mean DFT − GFN2-xTB energy shift of those that "
+                   f"have one. Columns marked “{esc(GFN2_TAG)}” hold the values without the single points.</p>")
+    elif rows:
+        out.append('<div class="failure"><strong>No DFT single point succeeded for this molecule:</strong> every '
+                   "value shown for it is GFN2-xTB only.</div>")
+    else:
+        out.append('<div class="failure"><strong>No refinement record (refine.csv) for this molecule:</strong> '
+                   "every value shown for it is GFN2-xTB only.</div>")
+    if rows or info:
+        seconds = _num(info.get("dft_seconds"))
+        if seconds is None and rows:
+            seconds = sum(_num(r.get("seconds")) or 0.0 for r in rows)
+        pairs = [("level", esc(dft_level(own))),
+                 ("single points", esc(f"{n_ok} succeeded, {len(failed)} failed, {n_skip} conformer(s) not "
+                                       f"selected (of {len(rows)})")),
+                 ("DFT time", fmt_seconds(seconds)),
+                 ("settings", _plain({k: v for k, v in own.items() if k not in ("functional", "basis")}))]
+        if isinstance(info.get("versions"), dict) and info["versions"]:
+            pairs.append(("versions", _plain(info["versions"])))
+        out.append(_kv_table(pairs))
+    if failed:
+        out.append(_table(["conformer", "status", "reason"],
+                          [[esc(r.get("conformer", "")), esc(r.get("status", "")),
+                            esc(r.get("reason") or "no reason recorded")] for r in failed]))
+        out.append(f'<p class="muted">{len(failed)} single point(s) failed; '
+                   + ("those conformers carry the mean shift of the successful ones." if m["refined"]
+                      else "no refined value exists for this molecule.") + "</p>")
+    return "".join(out)
 
 
 # ------------------------------------------------------------------------------------------ sections
 
-def _caution(method: str) -> str:
+def _caution(method: str, rs=None, solvent=None, unrefined=()) -> str:
+    if rs is None:
+        source = (f"Every number on this page comes from {esc(method)} energies with a harmonic/quasi-RRHO "
+                  "free-energy treatment.")
+    else:
+        source = (f"The free energies on this page are DFT single points ({esc(_dft_words(rs, solvent))}) on "
+                  f"{esc(method)} geometries, with {esc(method)} harmonic/quasi-RRHO thermal corrections — "
+                  f"written {esc(REFINED_TAG)}. Conformers without their own single point carry the mean "
+                  f"DFT − {esc(method)} energy shift of those that have one. Wherever a refined value is shown, "
+                  f"the {esc(method)}-only value stands beside it, marked “{esc(GFN2_TAG)}”.")
+        if unrefined:
+            source += (" No DFT single point succeeded (or none was recorded) for " + esc(", ".join(unrefined))
+                       + f": the values of those molecules are {esc(method)} only.")
     return (
         '<section class="caution" id="caution"><strong>Model predictions, not measurements.</strong> '
-        f"Every number on this page comes from {esc(method)} energies with a harmonic/quasi-RRHO free-energy "
-        "treatment. Expect errors of a few tenths of a kcal/mol on the A-values of simple groups, and larger "
+        f"{source} Expect errors of a few tenths of a kcal/mol on the A-values of simple groups, and larger "
         "ones for polar substituents, anomeric rings and groups held by dispersion (bulky or aromatic groups). "
         "Confirm a result experimentally (for example by low-temperature NMR) or at a higher level of theory "
         "before relying on it.</section>"
     )
 
 
-def _header(run_info: dict, mols: list[dict]) -> str:
+def _header(run_info: dict, mols: list[dict], rs=None) -> str:
     settings = run_info.get("settings") or {}
     project = run_info.get("project") or "chairqm run"
     main = [m for m in mols if not m["reference"]]
@@ -623,22 +793,33 @@ def _header(run_info: dict, mols: list[dict]) -> str:
            f"<p>chairqm {esc(run_info.get('chairqm_version', '?'))} · started {esc(run_info.get('started', '?'))}"
            f" · finished {esc(run_info.get('finished', '?'))}</p>",
            "</div></header><main>"]
-    out.append(_caution(settings.get("method") or "GFN2-xTB"))
+    solvent = settings.get("solvent")
+    not_refined = [m["name"] for m in mols if rs is not None and not m["refined"] and m["status"] != "failed"]
+    out.append(_caution(settings.get("method") or "GFN2-xTB", rs, solvent, not_refined))
     out.append('<section id="run"><h2>This run</h2><div class="tiles">')
     tiles = [(len(main), "molecules"), (n_ok, "finished"), (n_failed, "failed"), (n_flagged, "flagged"),
              (len(refs), "reference rings" + (f" ({n_ref_failed} failed)" if n_ref_failed else "")),
              (fmt_seconds(wall), "wall time"), (fmt_seconds(eng), "inside the engine")]
+    dft_s = None
+    if rs is not None:
+        dft_s = sum(_num(m["refine_info"].get("dft_seconds")) or 0.0 for m in mols)
+        tiles.append((fmt_seconds(dft_s), "in DFT single points"))
     for n, label in tiles:
         out.append(f'<div class="tile"><span class="n">{n if isinstance(n, str) else esc(n)}</span>'
                    f'<span class="l">{esc(label)}</span></div>')
     out.append("</div>")
     out.append(f"<p>Wall time {fmt_seconds(wall)}, of which {fmt_seconds(eng)} inside energy and gradient "
-               f"calls{share}, on {esc(run_info.get('n_cpus', '?'))} CPU core(s).</p>")
+               f"calls{share}, on {esc(run_info.get('n_cpus', '?'))} CPU core(s)."
+               + (f" The DFT single points took {fmt_seconds(dft_s)} (summed over the single points)."
+                  if dft_s is not None else "") + "</p>")
 
     out.append('<div class="row"><div><h3>Settings</h3>')
     order = ["temperatures_k", "solvent", "engine", "method", "thermo"]
     keys = [k for k in order if k in settings] + sorted(k for k in settings if k not in order)
-    out.append(_kv_table([(k, _plain(settings[k])) for k in keys]) if keys else '<p class="muted">none recorded</p>')
+    shown = dict(settings)
+    if rs is not None:
+        shown["refine"] = rs              # the settings the single points used, defaults filled in
+    out.append(_kv_table([(k, _plain(shown[k])) for k in keys]) if keys else '<p class="muted">none recorded</p>')
     out.append("</div><div><h3>Versions and provenance</h3>")
     pairs = [("chairqm", esc(run_info.get("chairqm_version", "?")))]
     skip = {"project", "chairqm_version", "settings", "started", "finished", "wall_seconds",
@@ -657,7 +838,19 @@ def _header(run_info: dict, mols: list[dict]) -> str:
     return "".join(out)
 
 
-def _overview(mols: list[dict]) -> str:
+def _side_by_side(m: dict, e: dict, key: str) -> list[str]:
+    """[refined, GFN2-xTB only] cells of a refined run's quantity `key` for molecule m."""
+    if not m["refined"]:
+        return ['<span class="muted">not refined</span>', fmt_kcal(e.get(key))]
+    return [fmt_kcal(e.get(key)), fmt_kcal((e.get("unrefined") or {}).get(key))]
+
+
+def _level_head(text: str, tag: str) -> str:
+    """A column heading with the level of theory on its own line (tag is escaped)."""
+    return f"{text}<br><small>{esc(tag)}</small>"
+
+
+def _overview(mols: list[dict], refine_on: bool = False) -> str:
     main = [m for m in mols if not m["reference"]]
     if not main:
         return ""
@@ -665,7 +858,8 @@ def _overview(mols: list[dict]) -> str:
     for m in main:
         link = f'<a href="#{esc(_anchor(m["name"]))}">{esc(m["name"])}</a>'
         if m["status"] == "failed":
-            rows.append([link, '<span class="badge failed">failed</span>', esc(m["reason"]), "", "", "", ""])
+            rows.append([link, '<span class="badge failed">failed</span>', esc(m["reason"]), "", "", "", ""]
+                        + (["", ""] if refine_on else []))
             classes.append("muted")
             continue
         ts = _temperatures(m)
@@ -674,16 +868,32 @@ def _overview(mols: list[dict]) -> str:
         flagged = any(_entry(m, x)["flag"] for x in ts)
         badge = ('<span class="badge flag">flagged</span>' if flagged else '<span class="badge fine">no flag</span>')
         fam = e.get("preferred_family")
-        rows.append([link, badge, f'<span class="mono">{esc(fam)}</span>' if fam else "—", fmt_t(t),
-                     fmt_kcal(e.get("chair_dg_kcal")), fmt_kcal(e.get("a_value_kcal")),
-                     fmt_pct(e.get("twist_boat_population"))])
+        fam_cell = f'<span class="mono">{esc(fam)}</span>' if fam else "—"
+        if refine_on:
+            rows.append([link, badge, fam_cell, fmt_t(t)] + _side_by_side(m, e, "chair_dg_kcal")
+                        + _side_by_side(m, e, "a_value_kcal") + [fmt_pct(e.get("twist_boat_population"))])
+        else:
+            rows.append([link, badge, fam_cell, fmt_t(t),
+                         fmt_kcal(e.get("chair_dg_kcal")), fmt_kcal(e.get("a_value_kcal")),
+                         fmt_pct(e.get("twist_boat_population"))])
         classes.append("")
-    return ('<section id="overview"><h2>Molecules at a glance</h2>'
-            + _table(["molecule", "verdict", "dominant family", "at", "chair gap / kcal mol⁻¹",
-                      "A-value / kcal mol⁻¹", "non-chair population"], rows, num_cols=(4, 5, 6),
-                     row_classes=classes)
+    if refine_on:
+        table = _table(["molecule", "verdict", "dominant family", "at",
+                        _level_head("chair gap / kcal mol⁻¹", REFINED_TAG),
+                        _level_head("chair gap / kcal mol⁻¹", GFN2_TAG),
+                        _level_head("A-value / kcal mol⁻¹", REFINED_TAG),
+                        _level_head("A-value / kcal mol⁻¹", GFN2_TAG), "non-chair population"],
+                       rows, num_cols=(4, 5, 6, 7, 8), row_classes=classes)
+        note = (f" Verdict, dominant family and non-chair population are {esc(REFINED_TAG)} for the refined "
+                f"molecules; “{esc(GFN2_TAG)}”: the same run without the DFT single points.")
+    else:
+        table = _table(["molecule", "verdict", "dominant family", "at", "chair gap / kcal mol⁻¹",
+                        "A-value / kcal mol⁻¹", "non-chair population"], rows, num_cols=(4, 5, 6),
+                       row_classes=classes)
+        note = ""
+    return ('<section id="overview"><h2>Molecules at a glance</h2>' + table
             + '<p class="muted">Values at the temperature closest to 298.15 K; every temperature is listed '
-              "with its molecule below.</p></section>")
+              f"with its molecule below.{note}</p></section>")
 
 
 def _depiction_block(m: dict) -> str:
@@ -729,22 +939,31 @@ def _family_table(m: dict, t) -> str:
         return '<p class="muted">No family table for this temperature.</p>'
     fams.sort(key=lambda f: (_num(f.get("g_rel_kcal")) if _num(f.get("g_rel_kcal")) is not None else 1e9,
                              f.get("ring_form", ""), f.get("orientation", "")))
+    side = any("g_rel_unrefined_kcal" in f for f in fams)        # a refined run's GFN2-xTB columns
     rows = []
     for k, f in enumerate(fams, 1):
         p = _num(f.get("population"))
         bar = f'<span class="bar" style="width:{max(1, round(60 * p)) if p else 0}px"></span>' if p else ""
-        rows.append([str(k), esc(f.get("ring_form", "")), esc(orientation_short(f.get("orientation"))),
-                     esc(f.get("axial") or "none"), fmt_kcal(f.get("g_rel_kcal")),
-                     bar + fmt_pct(p), esc(f.get("n_conformers", ""))])
+        row = [str(k), esc(f.get("ring_form", "")), esc(orientation_short(f.get("orientation"))),
+               esc(f.get("axial") or "none"), fmt_kcal(f.get("g_rel_kcal")), bar + fmt_pct(p)]
+        if side:
+            row += [fmt_kcal(f.get("g_rel_unrefined_kcal")), fmt_pct(f.get("population_unrefined"))]
+        rows.append(row + [esc(f.get("n_conformers", ""))])
+    if side:
+        return _table(["#", "ring form", "orientation", "axial groups",
+                       _level_head("G<sub>rel</sub> / kcal mol⁻¹", REFINED_TAG),
+                       _level_head("population", REFINED_TAG),
+                       _level_head("G<sub>rel</sub> / kcal mol⁻¹", GFN2_TAG),
+                       _level_head("population", GFN2_TAG), "conformers"], rows, num_cols=(0, 4, 5, 6, 7, 8))
     return _table(["#", "ring form", "orientation", "axial groups", "G<sub>rel</sub> / kcal mol⁻¹",
                    "population", "conformers"], rows, num_cols=(0, 4, 5, 6))
 
 
-def _chair_of(m: dict, t, which: str):
-    """The preferred (lowest G) chair family at t, or the other chair; None if absent."""
+def _chair_of(m: dict, t, which: str, column: str = "g_rel_kcal"):
+    """The preferred (lowest G, read from `column`) chair family at t, or the other chair; None if absent."""
     chairs = [f for f in m["families"] if _same_t(f.get("temperature_k"), t)
-              and f.get("ring_form") == "chair" and _num(f.get("g_rel_kcal")) is not None]
-    chairs.sort(key=lambda f: (_num(f["g_rel_kcal"]), f.get("orientation", "")))
+              and f.get("ring_form") == "chair" and _num(f.get(column)) is not None]
+    chairs.sort(key=lambda f: (_num(f[column]), f.get("orientation", "")))
     if which == "best":
         return chairs[0] if chairs else None
     return chairs[1] if len(chairs) > 1 else None
@@ -757,19 +976,55 @@ def _chair_words(fam) -> str:
     return "the chair" if o == "no substituent" else f"the chair with {o}"
 
 
+def _gfn2_chair_gap(m: dict, e: dict):
+    """A refined molecule's GFN2-xTB-only chair gap on the axis of the refined chairs (positive: the same
+    chair is preferred without the single points), with that chair family; (None, family) if unknown."""
+    u = e.get("unrefined") or {}
+    best_u = _chair_of(m, e["t"], "best", "g_rel_unrefined_kcal")
+    best = _chair_of(m, e["t"], "best")
+    gap_u = u.get("chair_dg_kcal")
+    if gap_u is None or best_u is None or best is None:
+        return None, best_u
+    same = best_u.get("orientation", "") == best.get("orientation", "")
+    return (abs(gap_u) if same else -abs(gap_u)), best_u
+
+
+def _gfn2_paragraph(m: dict, e: dict) -> str:
+    """What the same molecule gave without the DFT single points (refined molecules only; HTML)."""
+    u = e.get("unrefined")
+    if not m["refined"] or u is None:
+        return ""
+    signed, best_u = _gfn2_chair_gap(m, e)
+    if u["chair_dg_kcal"] is not None:
+        words = _chair_words(best_u) if best_u is not None else "the preferred chair"
+        text = f"{words} is lower in free energy by {fmt_kcal(abs(u['chair_dg_kcal']))} kcal/mol than the ring-flipped chair"
+        if signed is not None and signed < 0:
+            text += f" — the opposite chair to the {REFINED_TAG} result"
+        text += "."
+    else:
+        text = "no free-energy gap between the two chairs is available."
+    if u["a_value_kcal"] is not None:
+        text += f" A-value: {fmt_kcal(u['a_value_kcal'])} kcal/mol."
+    if u["flag"] is not None and u["flag"] != e["flag"]:
+        text += (f" At that level this molecule would be flagged: {u['flag_reason'] or 'no reason recorded'}."
+                 if u["flag"] else " At that level this molecule would not be flagged.")
+    return f"<p>{esc(GFN2_TAG)} (the same run without the DFT single points): {esc(text)}</p>"
+
+
 def _additive_block(m: dict, e: dict) -> str:
     t = e["t"]
     out = []
     best, other = _chair_of(m, t, "best"), _chair_of(m, t, "other")
     gap = e["chair_dg_kcal"]
     source = str(e["additive_source"] or "")
+    level = f" ({esc(REFINED_TAG)})" if m.get("refined") else ""
     if gap is not None:
-        computed = (f"Computed: {esc(_chair_words(best))} is lower in free energy by "
+        computed = (f"Computed{level}: {esc(_chair_words(best))} is lower in free energy by "
                     f"{fmt_kcal(abs(gap))} kcal/mol than the ring-flipped chair.")
     else:
-        computed = "Computed: no free-energy gap between the two chairs is available."
+        computed = f"Computed{level}: no free-energy gap between the two chairs is available."
     if e["a_value_kcal"] is not None:
-        computed += f" Computed A-value: {fmt_kcal(e['a_value_kcal'])} kcal/mol."
+        computed += f" Computed A-value{level}: {fmt_kcal(e['a_value_kcal'])} kcal/mol."
     if source == "outside-model":
         why = e["additive_reason"] or "the substitution pattern is not covered by group additivity"
         out.append(f"<p>The additive A-value model does not cover this molecule ({esc(why)}), "
@@ -792,6 +1047,7 @@ def _additive_block(m: dict, e: dict) -> str:
         out.append(f"<p>Additive estimate ({esc(kind + why)}): {esc(said)}. {computed}{diff}</p>")
     else:
         out.append(f"<p>No additive estimate was recorded. {computed}</p>")
+    out.append(_gfn2_paragraph(m, e))
 
     if e["flag"]:
         out.append(f'<div class="verdict flag"><strong>Flagged:</strong> {esc(e["flag_reason"] or "no reason recorded")}</div>')
@@ -803,10 +1059,15 @@ def _additive_block(m: dict, e: dict) -> str:
         out.append(f'<div class="verdict fine"><strong>No flag:</strong> {esc(text)}{extra}.</div>')
 
     if e["tabulated_dg"] is not None or e["qm_dg"] is not None:
-        out.append(_table(["additive estimate from", "ΔG / kcal mol⁻¹"],
-                          [["tabulated A-values", fmt_kcal(e["tabulated_dg"], signed=True)],
-                           ["QM-derived A-values (reference rings)", fmt_kcal(e["qm_dg"], signed=True)],
-                           ["this calculation (chair gap)", fmt_kcal(gap, signed=True)]], num_cols=(1,)))
+        rows = [["tabulated A-values", fmt_kcal(e["tabulated_dg"], signed=True)],
+                ["QM-derived A-values (reference rings)", fmt_kcal(e["qm_dg"], signed=True)]]
+        if m.get("refined") and e.get("unrefined") is not None:
+            rows += [[f"this calculation, {esc(REFINED_TAG)} (chair gap)", fmt_kcal(gap, signed=True)],
+                     [f"this calculation, {esc(GFN2_TAG)} (chair gap)",
+                      fmt_kcal(_gfn2_chair_gap(m, e)[0], signed=True)]]
+        else:
+            rows.append(["this calculation (chair gap)", fmt_kcal(gap, signed=True)])
+        out.append(_table(["additive estimate from", "ΔG / kcal mol⁻¹"], rows, num_cols=(1,)))
     terms = [tm for tm in e["terms"] if isinstance(tm, (list, tuple)) and len(tm) >= 2]
     if terms:
         rows = [[esc(tm[0]), fmt_kcal(tm[1], signed=True)] for tm in terms]
@@ -833,25 +1094,42 @@ def _conformer_table(m: dict, t) -> str:
         g = _num(c.get("g_rel_kcal"))
         return (0 if ok else 1, g if g is not None else 1e9, str(c.get("conformer", "")))
     confs.sort(key=key)
+    dft = bool(m.get("refined") or m.get("refine_rows")
+               or any(not _missing(c.get("refined_single_point")) for c in confs))
+    by_id = {str(r.get("conformer", "")): r for r in m.get("refine_rows") or []}
     rows, classes = [], []
     for c in confs:
         ok = str(c.get("status", "")).strip() == "ok"
         q, th, ph = _num(c.get("q")), _num(c.get("theta")), _num(c.get("phi"))
-        rows.append([esc(c.get("conformer", "")), esc(c.get("seed", "")), esc(c.get("ring_form", "")),
-                     esc(orientation_short(c.get("orientation"))),
-                     "—" if q is None else f"{q:.3f}", "—" if th is None else f"{th:.1f}",
-                     "—" if ph is None else f"{ph:.1f}",
-                     fmt_kcal(c.get("g_rel_kcal")) if ok else "—", fmt_pct(c.get("population")) if ok else "—",
-                     esc(c.get("n_imaginary", "")), esc(c.get("status", "")) if ok else f"<em>{esc(c.get('status', ''))}</em>"])
+        row = [esc(c.get("conformer", "")), esc(c.get("seed", "")), esc(c.get("ring_form", "")),
+               esc(orientation_short(c.get("orientation"))),
+               "—" if q is None else f"{q:.3f}", "—" if th is None else f"{th:.1f}",
+               "—" if ph is None else f"{ph:.1f}",
+               fmt_kcal(c.get("g_rel_kcal")) if ok else "—", fmt_pct(c.get("population")) if ok else "—"]
+        if dft:
+            row.append(_refine_status(by_id.get(str(c.get("conformer", ""))), c, bool(m.get("refined")))
+                       if ok else "—")
+        rows.append(row + [esc(c.get("n_imaginary", "")),
+                           esc(c.get("status", "")) if ok else f"<em>{esc(c.get('status', ''))}</em>"])
         classes.append("" if ok else "muted")
     n_bad = sum(1 for c in confs if str(c.get("status", "")).strip() != "ok")
     note = (f" {n_bad} listed conformer(s) are not counted in the populations (status other than ok)."
             if n_bad else "")
-    return (f"<details><summary>Every conformer at {fmt_t(t)} ({len(confs)}): puckering, free energy, "
-            "status</summary>"
-            + _table(["conformer", "seed", "ring form", "orientation", "Q / Å", "θ / °", "φ / °",
-                      "G<sub>rel</sub> / kcal mol⁻¹", "population", "imag.", "status"], rows,
-                     num_cols=(4, 5, 6, 7, 8, 9), row_classes=classes)
+    if dft:
+        tag = REFINED_TAG if m.get("refined") else GFN2_TAG
+        headers = ["conformer", "seed", "ring form", "orientation", "Q / Å", "θ / °", "φ / °",
+                   _level_head("G<sub>rel</sub> / kcal mol⁻¹", tag), _level_head("population", tag),
+                   "own DFT single point", "imag.", "status"]
+        note += (" Own DFT single point: whether the conformer got its own single point (and its outcome); "
+                 + ("the others carry the mean DFT − GFN2-xTB shift." if m.get("refined")
+                    else "none succeeded, so the free energies are GFN2-xTB only."))
+        what = "puckering, free energy, DFT single point, status"
+    else:
+        headers = ["conformer", "seed", "ring form", "orientation", "Q / Å", "θ / °", "φ / °",
+                   "G<sub>rel</sub> / kcal mol⁻¹", "population", "imag.", "status"]
+        what = "puckering, free energy, status"
+    return (f"<details><summary>Every conformer at {fmt_t(t)} ({len(confs)}): {what}</summary>"
+            + _table(headers, rows, num_cols=(4, 5, 6, 7, 8, len(headers) - 2), row_classes=classes)
             + f'<p class="muted">Q, θ, φ: Cremer–Pople puckering coordinates.{esc(note)}</p></details>')
 
 
@@ -867,7 +1145,7 @@ def _seed_failures(m: dict) -> str:
               'they are not counted in any population.</p>')
 
 
-def _molecule_section(m: dict) -> str:
+def _molecule_section(m: dict, rs=None, solvent=None) -> str:
     name = m["name"]
     head = f'<article class="card" id="{esc(_anchor(name))}"><h2>{esc(name)}'
     if m["status"] == "failed":
@@ -886,10 +1164,22 @@ def _molecule_section(m: dict) -> str:
     lead = _lead_temperature(ts)
     if lead is not None:
         e = _entry(m, lead)
-        out.append(f"<p>At {fmt_t(lead)} the dominant family is "
-                   f"<strong>{esc(_short_label(e['preferred_family']) if e['preferred_family'] else '—')}</strong>"
-                   f"; non-chair forms hold {fmt_pct(e['twist_boat_population'])} of the population.</p>")
+        u = e.get("unrefined") if m["refined"] else None
+        if u is not None:
+            u_fam = _short_label(u["preferred_family"]) if u["preferred_family"] else "—"
+            out.append(f"<p>At {fmt_t(lead)} the dominant family ({esc(REFINED_TAG)}) is "
+                       f"<strong>{esc(_short_label(e['preferred_family']) if e['preferred_family'] else '—')}</strong>"
+                       f"; non-chair forms hold {fmt_pct(e['twist_boat_population'])} of the population. "
+                       f"{esc(GFN2_TAG)}: <strong>{esc(u_fam)}</strong>, non-chair forms "
+                       f"{fmt_pct(u['twist_boat_population'])}.</p>")
+        else:
+            out.append(f"<p>At {fmt_t(lead)} the dominant family is "
+                       f"<strong>{esc(_short_label(e['preferred_family']) if e['preferred_family'] else '—')}</strong>"
+                       f"; non-chair forms hold {fmt_pct(e['twist_boat_population'])} of the population.</p>")
     out.append("</div></div>")
+    if rs is not None:
+        out.append(_refine_block(m, rs, solvent))
+    level = f"Free energies {esc(REFINED_TAG)}. " if m["refined"] else ""
 
     figs = []
     if lead is not None:
@@ -898,7 +1188,7 @@ def _molecule_section(m: dict) -> str:
         except Exception as exc:      # a figure problem is reported on the page, never fatal
             svg, figs = None, figs + [f'<p class="muted">Energy-level diagram not drawn: {esc(exc)}</p>']
         if svg:
-            figs.append(f"<div><figure>{svg}<figcaption>Solid levels: the counted conformers, at their relative free "
+            figs.append(f"<div><figure>{svg}<figcaption>{level}Solid levels: the counted conformers, at their relative free "
                         "energy; dashed level: the family's free energy (its conformers together); the number above "
                         "a column counts its conformers. Columns are ranked by family free energy.</figcaption>"
                         "</figure></div>")
@@ -907,7 +1197,7 @@ def _molecule_section(m: dict) -> str:
     except Exception as exc:
         svg, figs = None, figs + [f'<p class="muted">Population curve not drawn: {esc(exc)}</p>']
     if svg:
-        figs.append(f"<div><figure>{svg}<figcaption>Family populations against temperature (same free "
+        figs.append(f"<div><figure>{svg}<figcaption>{level}Family populations against temperature (same free "
                     "energies, re-weighted); dotted lines mark the temperatures of this run.</figcaption></figure></div>")
     if figs:
         out.append('<div class="row">' + "".join(figs) + "</div>")
@@ -916,7 +1206,8 @@ def _molecule_section(m: dict) -> str:
         e = _entry(m, t)
         out.append(f"<details{' open' if _same_t(t, lead) else ''}><summary>{fmt_t(t)}"
                    f"{' — flagged' if e['flag'] else ''}</summary>")
-        out.append("<h3>Families, ranked by free energy</h3>" + _family_table(m, t))
+        out.append("<h3>Families, ranked by free energy"
+                   + (f" ({esc(REFINED_TAG)})" if m["refined"] else "") + "</h3>" + _family_table(m, t))
         out.append("<h3>Additive A-value comparison</h3>" + _additive_block(m, e))
         out.append("</details>")
     if not ts:
@@ -928,7 +1219,7 @@ def _molecule_section(m: dict) -> str:
     return "".join(out)
 
 
-def _reference_section(refs: list[dict]) -> str:
+def _reference_section(refs: list[dict], refine_on: bool = False) -> str:
     if not refs:
         return ""
     rows, classes = [], []
@@ -936,21 +1227,32 @@ def _reference_section(refs: list[dict]) -> str:
         rec = m["record"]
         frag = ", ".join(str(s.get("fragment", "")) for s in rec.get("substituents") or [])
         if m["status"] == "failed":
-            rows.append([esc(m["name"]), f'<span class="mono">{esc(frag)}</span>', "—", "—", "—",
-                         f'<span class="badge failed">failed</span> {esc(m["reason"])}'])
+            rows.append([esc(m["name"]), f'<span class="mono">{esc(frag)}</span>', "—", "—"]
+                        + (["—"] if refine_on else [])
+                        + ["—", f'<span class="badge failed">failed</span> {esc(m["reason"])}'])
             classes.append("muted")
             continue
         for t in _temperatures(m):
             e = _entry(m, t)
-            rows.append([esc(m["name"]), f'<span class="mono">{esc(frag)}</span>', fmt_t(t),
-                         fmt_kcal(e["a_value_kcal"]), esc(_short_label(e["preferred_family"] or "—")),
-                         esc(e["flag_reason"]) if e["flag"] else "ok"])
+            values = _side_by_side(m, e, "a_value_kcal") if refine_on else [fmt_kcal(e["a_value_kcal"])]
+            rows.append([esc(m["name"]), f'<span class="mono">{esc(frag)}</span>', fmt_t(t)] + values
+                        + [esc(_short_label(e["preferred_family"] or "—")),
+                           esc(e["flag_reason"]) if e["flag"] else "ok"])
             classes.append("")
+    if refine_on:
+        headers = ["reference", "group", "at", _level_head("A-value / kcal mol⁻¹", REFINED_TAG),
+                   _level_head("A-value / kcal mol⁻¹", GFN2_TAG), "dominant family", "remark"]
+        num_cols = (3, 4)
+        extra = (f" The QM-derived estimates use the {esc(REFINED_TAG)} A-values of the refined reference "
+                 "rings.")
+    else:
+        headers = ["reference", "group", "at", "A-value / kcal mol⁻¹", "dominant family", "remark"]
+        num_cols = (3,)
+        extra = ""
     return ('<section id="reference"><h2>Reference rings</h2><p>Monosubstituted cyclohexanes the run added '
             "for groups without a tabulated A-value, computed with the same settings; their A-values feed "
-            "the QM-derived additive estimates above.</p>"
-            + _table(["reference", "group", "at", "A-value / kcal mol⁻¹", "dominant family", "remark"], rows,
-                     num_cols=(3,), row_classes=classes)
+            f"the QM-derived additive estimates above.{extra}</p>"
+            + _table(headers, rows, num_cols=num_cols, row_classes=classes)
             + "</section>")
 
 
@@ -967,13 +1269,15 @@ def build_report(out_dir, run_info: dict) -> str:
     parts = ["<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
              '<meta name="viewport" content="width=device-width, initial-scale=1">',
              f"<title>{esc(project)} — chairqm report</title>", f"<style>{CSS}</style></head><body>"]
-    parts.append(_header(run_info, mols))
-    parts.append(_overview(mols))
+    rs = _refine_settings(run_info, mols)
+    solvent = (run_info.get("settings") or {}).get("solvent")
+    parts.append(_header(run_info, mols, rs))
+    parts.append(_overview(mols, rs is not None))
     for m in main:
-        parts.append(_molecule_section(m))
+        parts.append(_molecule_section(m, rs, solvent))
     if not mols:
         parts.append('<p class="muted">This output folder holds no molecule results yet.</p>')
-    parts.append(_reference_section(refs))
+    parts.append(_reference_section(refs, rs is not None))
     parts.append("<footer>Energies in kcal/mol, temperatures in kelvin, populations as Boltzmann fractions "
                  "of the counted conformers. Written by chairqm "
                  f"{esc(run_info.get('chairqm_version', '?'))} from the files of this folder; "

@@ -761,12 +761,11 @@ def _calibrate_rows(rows, settings) -> str:
     """Calibrated value and 95 % prediction interval for each row's A-value (or, for rings with several
     groups, its chair gap), from the packaged calibration whose settings match this run; none otherwise."""
     from . import calibration as cq_cal
-    if settings.get("refine") is not None:
-        return "no calibration exists for DFT-refined values yet: values are uncalibrated"
     cal = cq_cal.load_matching(settings)
     if cal is None:
-        return ("no calibration matches these settings (method, engine, solvent, thermochemistry): "
-                "values are uncalibrated")
+        return ("no calibration matches these settings (method, engine, solvent, thermochemistry"
+                + (", DFT refinement level" if settings.get("refine") is not None else "")
+                + "): values are uncalibrated")
     for r in rows:
         if r.get("status") != "ok":
             continue

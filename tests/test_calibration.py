@@ -126,7 +126,7 @@ def _defaults():
 def test_settings_key_defaults_and_normalisation():
     k = cal.settings_key(_defaults())
     assert k == {"engine": "tblite", "method": "GFN2-xTB", "solvent": None, "thermo_model": "qrrho",
-                 "frequency_scale": 1.0}
+                 "frequency_scale": 1.0, "refine": None}
     assert cal.settings_key({}) == k                       # missing settings take the schema defaults
     assert cal.settings_key({"settings": _defaults()}) == k  # a whole configuration works too
     w = cal.settings_key({"solvent": {"model": "ALPB", "name": "Water"}})
@@ -142,9 +142,27 @@ def test_load_matching_none_for_unmatched_settings(tmp_path):
     assert cal.load_matching({}, path=path) is not None
     for other in ({"engine": "xtb-python"}, {"method": "GFN1-xTB"},
                   {"solvent": {"model": "alpb", "name": "water"}}, {"thermo": {"model": "rrho"}},
-                  {"thermo": {"frequency_scale": 0.97}}):
+                  {"thermo": {"frequency_scale": 0.97}}, {"refine": {}}):
         assert cal.load_matching(other, path=path) is None, other
     assert cal.load_matching({}, path=tmp_path / "absent.json") is None
+
+
+def test_refined_runs_have_their_own_calibration_key(tmp_path):
+    pytest.importorskip("pyscf")
+    default = cal.settings_key({"refine": {}})["refine"]
+    assert default is not None and "def2-svp" in default
+    # the DFT level is in the key; the selection window is not (it does not change a refined energy)
+    assert cal.settings_key({"refine": {"window_kcal": 1.0}})["refine"] == default
+    assert cal.settings_key({"refine": {"basis": "def2-TZVP"}})["refine"] != default
+    # with a solvent the solvent model is part of it
+    assert cal.settings_key({"refine": {}, "solvent": {"model": "alpb", "name": "water"}})["refine"] != default
+    path = tmp_path / "cal.json"
+    cal.save(cal.fit(X3, Y3, settings=cal.settings_key({})), path)
+    cal.save(cal.fit(X3, [2.0, 4.0, 3.0], settings=cal.settings_key({"refine": {}})), path)
+    assert len(cal.load_all(path)) == 2
+    assert cal.load_matching({"refine": {}}, path=path).intercept == pytest.approx(2.0)
+    assert cal.load_matching({"refine": {"basis": "def2-TZVP"}}, path=path) is None
+    assert cal.load_matching({}, path=path).intercept != pytest.approx(2.0)
 
 
 def test_save_replaces_same_key_and_keeps_others(tmp_path):

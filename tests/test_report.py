@@ -15,7 +15,7 @@ import pytest
 
 from chairqm import fileio
 from chairqm.molecule import perceive
-from chairqm.report import depiction_svg, write_report
+from chairqm.report import depiction_svg, fmt_seconds, orientation_short, write_report
 
 R_KCAL = 0.0019872    # kcal/(mol K), only to make the fixture's made-up populations sum to one
 TEMPS = [298.15, 350.0]
@@ -362,3 +362,235 @@ def test_missing_tables_and_curve_are_said_not_fatal(run_folder, tmp_path):
     assert "No family table for this temperature" in block
     assert block.count("<svg") == 1                                   # the depiction only
     assert not _parse(text).problems
+
+
+# ------------------------------------------------------------------------------------------ refined runs
+#
+# The same fixture folder turned into a run with `settings.refine`: the refined molecules get the extra
+# columns and files the ensemble and refine stages write (GFN2-xTB-only values beside the refined ones,
+# refine.csv, refine.json). The GFN2-xTB-only free energies below are made up, chosen only to differ from
+# the refined ones (and, for cis-tBu-Me, to prefer the other chair), so that the page must show both.
+
+REFINE_JSON_SETTINGS = {"functional": "PBE0", "basis": "def2-TZVP", "dispersion": "d3bj",
+                        "density_fitting": True, "window_kcal": 2.5, "max_memory_mb": 4000,
+                        "solvent_model": "gfn2-delta", "conv_tol": 1e-9, "max_cycle": 100, "grid_level": 3}
+REFINE_SECONDS = 4321.0
+FAILED_SP_REASON = "SCF did not converge in 100 cycles <level shift 0.2>"
+UNREFINED_G = {"methyl-chx": [0.0, 1.37, 4.9], "cis-tBu-Me": [0.5, 0.0, 3.6], "ref-cyclopropyl": [0.0, 1.55]}
+ALL_SP_FAILED = "thp-2-OMe"
+
+
+def _spec(name):
+    return next(s for s in MOLECULES if s["name"] == name)
+
+
+def _unrefined_summary(spec, t):
+    """chair gap, A-value, preferred family, non-chair population of the made-up GFN2-xTB-only values."""
+    gs = UNREFINED_G[spec["name"]]
+    fams = spec["families"]
+    chairs = sorted((g, f) for g, f in zip(gs, fams) if f[0] == "chair")
+    gap = chairs[1][0] - chairs[0][0]
+    mono = len(fams[0][1]) == 1
+    a_value = (gap if chairs[0][1][1]["s1"] == "equatorial" else -gap) if mono else None
+    best = min(zip(gs, fams), key=lambda x: x[0])[1]
+    non_chair = sum(p for f, p in zip(fams, _boltzmann(gs, t)) if f[0] != "chair")
+    return dict(preferred_family=_family_label(*best[:2]), chair_dg_kcal=gap, a_value_kcal=a_value,
+                twist_boat_population=non_chair, flag=False, flag_reason="")
+
+
+def write_refined_run_folder(out):
+    import pandas as pd
+
+    write_run_folder(out)
+    summary = pd.read_csv(out / "summary.csv", dtype=str, keep_default_na=False)
+    summary["refined"] = ""
+    summary["chair_dg_unrefined_kcal"] = ""
+    summary["a_value_unrefined_kcal"] = ""
+    for spec in MOLECULES:
+        name = spec["name"]
+        if spec.get("failed"):
+            continue
+        folder = out / name
+        summary.loc[summary["molecule"] == name, "refined"] = str(name in UNREFINED_G)
+        confs = pd.read_csv(folder / "conformers.csv", dtype=str, keep_default_na=False)
+        usable = [c for c in dict.fromkeys(confs.loc[confs["status"] == "ok", "conformer"])]
+        if name == ALL_SP_FAILED:      # every single point failed: the molecule keeps its GFN2-xTB values
+            rows = [dict(conformer=c, selected=True, energy_hartree=-20.5, energy_refined_hartree="",
+                         solvation_hartree="", converged=False, seconds=12.0, status="failed",
+                         reason="out of memory") for c in usable]
+            fileio.write_csv(folder / "refine.csv", pd.DataFrame(rows))
+            fileio.write_json(folder / "refine.json", {"molecule": name, "settings": REFINE_JSON_SETTINGS,
+                                                       "dft_seconds": 0.0})
+            ens = json.loads((folder / "ensemble.json").read_text())
+            ens["refined"] = False
+            fileio.write_json(folder / "ensemble.json", ens)
+            continue
+        if name not in UNREFINED_G:
+            continue
+        # refine.csv: the first two conformers refined, the third failed, the rest not selected
+        status = {c: ("ok" if k < 2 else "failed" if k == 2 else "not-selected") for k, c in enumerate(usable)}
+        rows = [dict(conformer=c, selected=s != "not-selected", energy_hartree=-20.5,
+                     energy_refined_hartree=-233.1 if s == "ok" else "", solvation_hartree=0.0 if s == "ok" else "",
+                     converged=s == "ok" if s != "not-selected" else "", seconds=300.0 if s != "not-selected" else "",
+                     status=s, reason={"ok": "", "failed": FAILED_SP_REASON}.get(s, "more than 2.5 kcal/mol above "
+                                                                             "the lowest"))
+                for c, s in status.items()]
+        fileio.write_csv(folder / "refine.csv", pd.DataFrame(rows))
+        fileio.write_json(folder / "refine.json", {"molecule": name, "settings": REFINE_JSON_SETTINGS,
+                                                   "versions": {"pyscf": "2.8.0"}, "dft_seconds": REFINE_SECONDS})
+        confs["energy_refined_hartree"] = [-233.1 if status.get(c) == "ok" else "" for c in confs["conformer"]]
+        confs["g_refined_hartree"] = [-233.0 if c in status else "" for c in confs["conformer"]]
+        confs["refined_single_point"] = [status.get(c) == "ok" for c in confs["conformer"]]
+        fileio.write_csv(folder / "conformers.csv", confs)
+        fams = pd.read_csv(folder / "families.csv", dtype=str, keep_default_na=False)
+        g_u, p_u = [], []
+        for t in TEMPS:
+            g_u += UNREFINED_G[name]
+            p_u += _boltzmann(UNREFINED_G[name], t)
+        fams["g_rel_unrefined_kcal"] = g_u
+        fams["population_unrefined"] = p_u
+        fileio.write_csv(folder / "families.csv", fams)
+        ens = json.loads((folder / "ensemble.json").read_text())
+        ens["refined"] = True
+        for entry in ens["temperatures"]:
+            entry["unrefined"] = _unrefined_summary(spec, entry["temperature_k"])
+        fileio.write_json(folder / "ensemble.json", ens)
+        for t in TEMPS:
+            u = _unrefined_summary(spec, t)
+            sel = (summary["molecule"] == name) & (summary["temperature_k"].astype(float) == t)
+            summary.loc[sel, "chair_dg_unrefined_kcal"] = str(u["chair_dg_kcal"])
+            summary.loc[sel, "a_value_unrefined_kcal"] = "" if u["a_value_kcal"] is None else str(u["a_value_kcal"])
+    fileio.write_csv(out / "summary.csv", summary)
+    return out
+
+
+RUN_INFO_REFINED = dict(copy.deepcopy(RUN_INFO))
+RUN_INFO_REFINED["settings"]["refine"] = {}          # as configured: every default; refine.json has the values
+
+
+@pytest.fixture(scope="module")
+def refined_page(tmp_path_factory):
+    out = write_refined_run_folder(tmp_path_factory.mktemp("refined"))
+    return write_report(out, RUN_INFO_REFINED).read_text(encoding="utf-8")
+
+
+def _article(text, name):
+    block = text[text.index(f'id="m-{name}"'):]
+    return block[:block.index("</article>")]
+
+
+def _table_rows(fragment):
+    """Every table row of an HTML fragment as a list of its cells' plain text."""
+    rows = []
+    for tr in re.findall(r"<tr[^>]*>(.*?)</tr>", fragment, flags=re.S):
+        cells = re.findall(r"<t[hd][^>]*>(.*?)</t[hd]>", tr, flags=re.S)
+        rows.append([html.unescape(re.sub(r"<[^>]+>", " ", c)).strip() for c in cells])
+    return rows
+
+
+def _f2(x):
+    return f"{x:.2f}"
+
+
+def test_refined_family_table_shows_both_levels(refined_page):
+    block = _article(refined_page, "methyl-chx")
+    lead = block[:block.index("Additive A-value comparison")]          # the 298.15 K family table
+    head = next(r for r in _table_rows(lead) if r and r[0] == "#")
+    assert any("GFN2-xTB only" in h for h in head) and any("DFT//GFN2-xTB" in h for h in head)
+    spec = _spec("methyl-chx")
+    for (form, d, g, _), g_u in zip(spec["families"], UNREFINED_G["methyl-chx"]):
+        row = next(r for r in _table_rows(lead) if r and r[1] == form and r[2] == orientation_short(_orient(d)))
+        assert row[head.index(next(h for h in head if "G rel" in h and "DFT" in h))] == _f2(g)
+        assert row[head.index(next(h for h in head if "G rel" in h and "GFN2-xTB only" in h))] == _f2(g_u)
+    # the unrefined population column is there too (two population columns)
+    assert sum("population" in h for h in head) == 2
+
+
+def test_refined_page_names_the_dft_level(refined_page):
+    caution = refined_page[refined_page.index('id="caution"'):]
+    caution = caution[:caution.index("</section>")]
+    # settings.refine was {}: the functional and basis can only come from refine.json
+    assert "PBE0" in caution and "def2-TZVP" in caution and "Becke–Johnson" in caution
+    assert "B3LYP" not in caution
+    assert "GFN2-xTB geometries" in caution and "thermal corrections" in caution
+    assert ALL_SP_FAILED in caution                         # the molecule whose single points all failed
+    assert "Model predictions, not measurements" in caution
+
+
+def test_refined_page_shows_failed_single_point_and_dft_time(refined_page):
+    block = _article(refined_page, "methyl-chx")
+    assert html.escape(FAILED_SP_REASON) in block
+    assert "<level shift" not in block                      # escaped
+    dft = block[block.index("<h3>DFT refinement</h3>"):]
+    assert fmt_seconds(REFINE_SECONDS) in dft
+    assert "2 succeeded, 1 failed, 2 conformer(s) not selected (of 5)" in dft
+    conf = _table_rows(block[block.index("Every conformer at"):])
+    head = conf[0]
+    col = head.index("own DFT single point")
+    by_id = {r[0]: r for r in conf[1:]}
+    assert by_id["c001"][col].startswith("yes") and by_id["c002"][col].startswith("yes")
+    assert "failed" in by_id["c003"][col] and FAILED_SP_REASON in by_id["c003"][col]
+    assert by_id["c004"][col].startswith("not selected")
+    assert by_id["c006"][col] == "—"                       # not a usable minimum
+
+
+def test_refined_overview_and_additive_block_give_the_gfn2_values(refined_page):
+    ov = refined_page[refined_page.index('id="overview"'):]
+    ov = ov[:ov.index("</section>")]
+    rows = _table_rows(ov)
+    head = rows[0]
+    gap_dft = next(i for i, h in enumerate(head) if h.startswith("chair gap") and "DFT" in h)
+    gap_gfn = next(i for i, h in enumerate(head) if h.startswith("chair gap") and "GFN2-xTB only" in h)
+    a_dft = next(i for i, h in enumerate(head) if h.startswith("A-value") and "DFT" in h)
+    a_gfn = next(i for i, h in enumerate(head) if h.startswith("A-value") and "GFN2-xTB only" in h)
+    by_name = {r[0]: r for r in rows[1:]}
+    spec = _spec("methyl-chx")
+    u = _unrefined_summary(spec, 298.15)
+    r = by_name["methyl-chx"]
+    assert r[gap_dft] == _f2(spec["families"][1][2]) and r[gap_gfn] == _f2(u["chair_dg_kcal"])
+    assert r[a_gfn] == _f2(u["a_value_kcal"]) and r[a_dft] != r[a_gfn]
+    assert by_name[ALL_SP_FAILED][gap_dft] == "not refined"
+    assert all(len(row) == len(head) for row in rows)       # the failed molecule's row is padded too
+
+    block = _article(refined_page, "methyl-chx")
+    add = block[block.index("Additive A-value comparison"):]
+    assert f"by {_f2(u['chair_dg_kcal'])} kcal/mol" in add.split("GFN2-xTB only (the same run")[1]
+    assert "opposite chair to the DFT//GFN2-xTB result" not in add
+    # cis-tBu-Me prefers the other chair without the single points: said so
+    add = _article(refined_page, "cis-tBu-Me")
+    assert "opposite chair to the DFT//GFN2-xTB result" in add
+    # the reference ring's A-value at both levels
+    ref = refined_page[refined_page.index('id="reference"'):]
+    assert _f2(UNREFINED_G["ref-cyclopropyl"][1]) in ref and "GFN2-xTB only" in ref
+
+
+def test_molecule_whose_single_points_all_failed_says_it_is_gfn2_only(refined_page):
+    block = _article(refined_page, ALL_SP_FAILED)
+    assert "No DFT single point succeeded for this molecule" in block
+    assert "out of memory" in block
+    assert "Families, ranked by free energy</h3>" in block     # not labelled as refined
+
+
+def test_refined_page_is_well_formed_and_self_contained(refined_page):
+    parsed = _parse(refined_page)
+    assert parsed.problems == [] and parsed.stack == []
+    assert "<script" not in refined_page.lower()
+    stripped = re.sub(r"""\sxmlns(:\w+)?=(['"])[^'"]*\2""", "", refined_page)
+    assert "http://" not in stripped and "https://" not in stripped
+
+
+def test_unrefined_page_has_no_refinement_columns(page):
+    _, text, _ = page
+    for words in ("GFN2-xTB only", "DFT//GFN2-xTB", "own DFT single point", "DFT refinement", "not refined",
+                  "DFT single point"):
+        assert words not in text, words
+    block = _article(text, "methyl-chx")
+    head = next(r for r in _table_rows(block) if r and r[0] == "#")
+    assert sum("population" in h for h in head) == 1
+
+
+def test_refined_settings_table_lists_the_settings_the_single_points_used(refined_page):
+    run = refined_page[refined_page.index('id="run"'):]
+    run = run[:run.index("</section>")]
+    row = next(r for r in _table_rows(run) if r and r[0] == "refine")
+    assert "functional=PBE0" in row[1] and "basis=def2-TZVP" in row[1] and "window_kcal=2.5" in row[1]
