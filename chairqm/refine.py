@@ -48,7 +48,7 @@ DEFAULTS = {
     "dispersion": "d3bj",
     "density_fitting": True,
     "window_kcal": 3.0,
-    "max_memory_mb": 4000,
+    "max_memory_mb": 2000,
     "solvent_model": "gfn2-delta",
     "conv_tol": 1e-9,
     "max_cycle": 100,
@@ -402,7 +402,7 @@ def dispersion_energy(numbers, positions_angstrom, functional: str, dispersion: 
     return float(model.get_dispersion(param, grad=False)["energy"])
 
 
-def build_mole(atoms, charge: int, multiplicity: int, basis: str, max_memory_mb: int = 4000):
+def build_mole(atoms, charge: int, multiplicity: int, basis: str, max_memory_mb: int = 2000):
     """A built pyscf.gto.Mole for ASE Atoms (Å), with the basis's ECPs where it has them, output off."""
     from pyscf import gto
     symbols = atoms.get_chemical_symbols()

@@ -16,6 +16,7 @@ SCRIPTS = {
     "seeding.py": [],
     "overhead.py": [],
     "scaling.py": [pytest.mark.slow],
+    "refine.py": [],
 }
 # a table as benchmarks/_common.table prints it: a header line, then a rule of dash runs separated by two spaces
 RULE = re.compile(r"^-+(  -+)+$", re.M)

@@ -249,3 +249,23 @@ def test_file_fingerprint_changes_with_the_file(tmp_path):
     first = cal.file_fingerprint(path)
     cal.save(cal.fit(X3, [2.0, 4.0, 3.0], settings=cal.settings_key({})), path)
     assert first and cal.file_fingerprint(path) != first
+
+
+def test_calibrate_refine_writes_the_reference_configuration_with_refinement(tmp_path):
+    from pathlib import Path
+
+    import yaml
+
+    from chairqm import cli
+
+    ref = Path(cli.project_root()) / "configs" / "reference.yaml"
+    derived = cli._with_refinement(ref, "{basis: def2-TZVP}", tmp_path / "out")
+    cfg = cq_config.load(derived)
+    assert cfg["settings"]["refine"] == {"basis": "def2-TZVP"}
+    assert [m["name"] for m in cfg["molecules"]] == [m["name"] for m in yaml.safe_load(ref.read_text())["molecules"]]
+    assert cq_config.load(cli._with_refinement(ref, "{}", tmp_path / "o2"))["settings"]["refine"] == {}
+    for bad in ("[1, 2]", "{basis: [", "just text"):
+        with pytest.raises(ChairqmError, match="--refine"):
+            cli._with_refinement(ref, bad, tmp_path / "o3")
+    # a user's mistake is an input error (exit 2), before anything runs
+    assert cli.main(["calibrate", str(ref), "--out", str(tmp_path / "o4"), "--refine", "[1]"]) == 2
