@@ -44,7 +44,7 @@ from chairqm.units import BOHR_A, KCAL_PER_HARTREE
 
 DEFAULTS = {
     "functional": "B3LYP",
-    "basis": "def2-SVP",
+    "basis": "def2-TZVP",
     "dispersion": "d3bj",
     "density_fitting": True,
     "window_kcal": 3.0,

@@ -150,10 +150,10 @@ def test_load_matching_none_for_unmatched_settings(tmp_path):
 def test_refined_runs_have_their_own_calibration_key(tmp_path):
     pytest.importorskip("pyscf")
     default = cal.settings_key({"refine": {}})["refine"]
-    assert default is not None and "def2-svp" in default
+    assert default is not None and "b3lyp" in default and "def2-tzvp" in default
     # the DFT level is in the key; the selection window is not (it does not change a refined energy)
     assert cal.settings_key({"refine": {"window_kcal": 1.0}})["refine"] == default
-    assert cal.settings_key({"refine": {"basis": "def2-TZVP"}})["refine"] != default
+    assert cal.settings_key({"refine": {"basis": "def2-SVP"}})["refine"] != default
     # with a solvent the solvent model is part of it
     assert cal.settings_key({"refine": {}, "solvent": {"model": "alpb", "name": "water"}})["refine"] != default
     path = tmp_path / "cal.json"
@@ -161,7 +161,7 @@ def test_refined_runs_have_their_own_calibration_key(tmp_path):
     cal.save(cal.fit(X3, [2.0, 4.0, 3.0], settings=cal.settings_key({"refine": {}})), path)
     assert len(cal.load_all(path)) == 2
     assert cal.load_matching({"refine": {}}, path=path).intercept == pytest.approx(2.0)
-    assert cal.load_matching({"refine": {"basis": "def2-TZVP"}}, path=path) is None
+    assert cal.load_matching({"refine": {"basis": "def2-SVP"}}, path=path) is None
     assert cal.load_matching({}, path=path).intercept != pytest.approx(2.0)
 
 

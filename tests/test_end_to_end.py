@@ -242,4 +242,4 @@ def test_refined_run_writes_both_levels_side_by_side(refined_run):
     assert (rc["status"] == "ok").sum() == 2          # window 0: one conformer per chair family
     assert set(rc["status"]) <= {"ok", "not-selected"}
     page = (refined_run / "report.html").read_text()
-    assert "GFN2-xTB only" in page and "def2-SVP" in page
+    assert "GFN2-xTB only" in page and "def2-TZVP" in page

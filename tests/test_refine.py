@@ -83,7 +83,7 @@ def test_water_def2svp_energy_matches_psi4_to_a_microhartree(functional):
 def test_density_fitting_costs_water_far_less_than_a_millihartree():
     # the def2 JKFIT auxiliary basis: density-fitting errors in total energies are ~1e-5 Eh per atom
     # (Weigend, J. Comput. Chem. 2008, 29, 167; from memory); relative conformer energies cancel them
-    r = refine.single_point(water_experimental(), 0, 1, {"dispersion": "none"})
+    r = refine.single_point(water_experimental(), 0, 1, {"basis": "def2-SVP", "dispersion": "none"})
     assert abs(r["energy_hartree"] - PSI4_WATER_DEF2SVP["B3LYP"]) < 1e-4
 
 
@@ -137,7 +137,7 @@ def test_b3lyp_d3bj_water_matches_pyscf_and_dftd3_computed_directly():
     from pyscf import dft, gto
 
     w = molecule("H2O")
-    r = refine.single_point(w, 0, 1, {})
+    r = refine.single_point(w, 0, 1, {"basis": "def2-SVP"})
     mol = gto.M(atom=[(s, tuple(p)) for s, p in zip(w.get_chemical_symbols(), w.get_positions())],
                 basis="def2-SVP", unit="Angstrom", verbose=0)
     mf = dft.RKS(mol, xc="B3LYP").density_fit()
@@ -280,7 +280,7 @@ def test_select_rejects_bad_input():
 # -------------------------------------------------------------------------------------------- checks
 def test_check_accepts_the_defaults_for_iodine_and_rejects_a_basis_without_it():
     ch3i = ["C", "H", "H", "H", "I"]
-    refine.check({}, ch3i, 0, 1)                    # def2-SVP covers H-Rn (Weigend, Ahlrichs 2005)
+    refine.check({}, ch3i, 0, 1)                    # the def2 sets cover H-Rn (Weigend, Ahlrichs 2005)
     refine.check(None, ch3i, 0, 1)
     # Pople's 6-31G* is defined only up to Kr, and not for I (Rassolov et al. 1998; from memory)
     with pytest.raises(ChairqmError, match="6-31G.*I"):
@@ -324,7 +324,7 @@ def test_check_rejects_charge_and_multiplicity_that_do_not_fit_the_electrons():
         refine.check({}, ch3, 0, 1)
     refine.check({}, ch3, 0, 2)
     refine.check({}, ch3, 1, 1)                      # CH3+ has 8
-    # with an ECP the core electrons are gone but the parity stays: I has 25 valence electrons in def2-SVP
+    # with an ECP the core electrons are gone but the parity stays: I has 25 valence electrons in the def2 sets
     # (a 28-electron core; Peterson et al. 2003)
     with pytest.raises(ChairqmError, match="multiplicity"):
         refine.check({}, ["I"], 0, 1)
@@ -370,67 +370,3 @@ def test_user_fixable_settings_raise_from_single_point():
         refine.single_point(Atoms("HI", positions=[[0, 0, 0], [0, 0, 1.61]]), 0, 1, {"basis": "6-31G*"})
     with pytest.raises(ChairqmError, match="multiplicity"):
         refine.single_point(molecule("CH3"), 0, 1, {})
-
-
-# ------------------------------------------------------------------------------ methylcyclohexane
-def _chair_and_orientation(pos, ring, c1, methyl):
-    p = np.asarray(pos)
-    tors = []
-    for k in range(6):
-        a, b, c, d = (p[ring[(k + m) % 6]] for m in range(4))
-        b0, b1, b2 = a - b, c - b, d - c
-        n1, n2 = np.cross(b0, b1), np.cross(b1, b2)
-        tors.append(math.degrees(math.atan2(np.dot(np.cross(n1, n2), b1 / np.linalg.norm(b1)), np.dot(n1, n2))))
-    # chair: ring torsions alternate in sign, none small (common practice; ideal ±55°)
-    chair = all(np.sign(tors[k]) != np.sign(tors[(k + 1) % 6]) for k in range(6)) and min(map(abs, tors)) > 30
-    normal = np.linalg.svd(p[ring] - p[ring].mean(0))[2][2]
-    bond = p[methyl] - p[c1]
-    cos = abs(np.dot(bond, normal)) / np.linalg.norm(bond)
-    # axial bonds are parallel to the ring's mean-plane normal, equatorial ones nearly in the plane
-    return chair, ("axial" if cos > 0.85 else "equatorial" if cos < 0.5 else "?")
-
-
-def gfn2_methylcyclohexane_chairs():
-    """Equatorial and axial chair of methylcyclohexane: RDKit ETKDG + MMFF, then GFN2-xTB (tblite) with BFGS."""
-    from ase.optimize import BFGS
-    from rdkit import Chem
-    from rdkit.Chem import AllChem
-    from tblite.ase import TBLite
-
-    mol = Chem.AddHs(Chem.MolFromSmiles("CC1CCCCC1"))
-    ids = AllChem.EmbedMultipleConfs(mol, numConfs=30, randomSeed=20240611)
-    energies = AllChem.MMFFOptimizeMoleculeConfs(mol, maxIters=2000)
-    ring = list(next(r for r in mol.GetRingInfo().AtomRings() if len(r) == 6))
-    order = [1]
-    while len(order) < 6:
-        order.append(next(n.GetIdx() for n in mol.GetAtomWithIdx(order[-1]).GetNeighbors()
-                          if n.GetIdx() in ring and n.GetIdx() not in order))
-    best = {}
-    for cid, (_, e) in zip(ids, energies):
-        pos = mol.GetConformer(cid).GetPositions()
-        chair, label = _chair_and_orientation(pos, order, 1, 0)
-        if chair and label != "?" and (label not in best or e < best[label][0]):
-            best[label] = (e, pos)
-    assert set(best) == {"axial", "equatorial"}, "embedding gave no chair of one kind: change the random seed"
-    out = {}
-    for label, (_, pos) in best.items():
-        a = Atoms([x.GetSymbol() for x in mol.GetAtoms()], positions=pos)
-        a.calc = TBLite(method="GFN2-xTB", verbosity=0)
-        BFGS(a, logfile=None).run(fmax=0.005, steps=500)
-        assert _chair_and_orientation(a.get_positions(), order, 1, 0) == (True, label)
-        a.calc = None
-        out[label] = a
-    return out
-
-
-@pytest.mark.slow
-def test_methylcyclohexane_axial_minus_equatorial_is_near_ccsdt():
-    # CCSD(T)/CBS Delta E(axial - equatorial) of methylcyclohexane: 1.75 kcal/mol (Weldon, Vickrey,
-    # Tschumper, J. Phys. Chem. A 2005, 109, 11073). B3LYP-D3(BJ)/def2-SVP single points on GFN2-xTB
-    # geometries are expected within 0.6 kcal/mol of it (tolerance chosen for a double-zeta basis, common
-    # practice).  Two single points: ~ 15 s each on one free core.
-    chairs = gfn2_methylcyclohexane_chairs()
-    res = {k: refine.single_point(a, 0, 1, {}, threads=1) for k, a in chairs.items()}
-    assert all(r["converged"] for r in res.values())
-    de = (res["axial"]["energy_hartree"] - res["equatorial"]["energy_hartree"]) * KCAL_PER_HARTREE
-    assert de == pytest.approx(1.75, abs=0.6)
