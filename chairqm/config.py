@@ -75,6 +75,15 @@ def _messages(cfg: dict, schema: dict) -> list[str]:
         elif err.validator == "pattern" and path and path[-1] == "name":
             msgs.append(f"{where}: unsafe molecule name {err.instance!r}: use letters, digits, '-', '_', '.' "
                         "(starting with a letter, digit or '_'; no '/'; at most 64 characters), because it becomes a folder name")
+        elif err.validator == "oneOf" and path and path[-1] == "refine":
+            if not isinstance(err.instance, dict):
+                msgs.append(f"{where}: give a mapping of refinement settings ({{}} takes every default) or "
+                            f"leave it out for no refinement, got {err.instance!r}")
+            else:
+                block = next(b for b in err.schema["oneOf"] if b.get("type") == "object")
+                for m in _messages(err.instance, block):
+                    msgs.append(m.replace("at top level", f"at {where}") if "at top level" in m
+                                else f"{where}.{m}")
         elif err.validator == "oneOf" and path and path[-1] == "solvent":
             msgs.append(f"{where}: solvent must be null or {{model: alpb|gbsa, name: <solvent>}}, got {err.instance!r}")
         else:

@@ -74,6 +74,15 @@ CASES = [
     ("bad-solvent-model", cfg(settings={"solvent": {"model": "cosmo", "name": "water"}}), {}, ["solvent must be null or"]),
     ("solvent-string", cfg(settings={"solvent": "water"}), {}, ["solvent must be null or"]),
     ("bad-thermo-model", cfg(settings={"thermo": {"model": "harmonic"}}), {}, ["thermo.model", "is not one of"]),
+    ("refine-not-mapping", cfg(settings={"refine": True}), {}, ["settings.refine", "mapping"]),
+    ("refine-unknown-key", cfg(settings={"refine": {"functionl": "PBE0"}}), {},
+     ["unknown key 'functionl' at settings.refine", "did you mean 'functional'"]),
+    ("refine-negative-window", cfg(settings={"refine": {"window_kcal": -1}}), {}, ["settings.refine.window_kcal", "-1"]),
+    ("refine-basis-lacks-element", cfg(mols=[{"name": "iodo", "smiles": "IC1CCCCC1"}],
+                                       settings={"refine": {"basis": "6-31G*"}}), {},
+     ["iodo: refine", "6-31G*", "no functions for element I"]),
+    ("refine-unknown-functional", cfg(settings={"refine": {"functional": "B3LPY"}}), {},
+     ["unknown functional 'B3LPY'"]),
 ]
 
 
