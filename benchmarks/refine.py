@@ -146,7 +146,7 @@ def main(argv=None) -> int:
                    "DFT s": sum(r["DFT s"] for r in rows), "GFN2-xTB s": sum(r["GFN2-xTB s"] for r in rows)}
             tot["DFT / GFN2-xTB"] = tot["DFT s"] / tot["GFN2-xTB s"] if tot["GFN2-xTB s"] else None
             rows.append(tot)
-        print(f"\nrefined run {run}\n" + C.table(rows))
+        print(f"\nrefined run {run}\n" + C.table(rows, floatfmt=".1f"))
         result.setdefault("runs", {})[run] = rows
     if not (args.quick or args.levels or args.run):
         ap.error("give --quick, --levels and/or --run DIR")

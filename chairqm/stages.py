@@ -96,7 +96,7 @@ def write_xyz(path, atoms, comment_info=None):
 
 
 # Fault injection for the reliability tests: CHAIRQM_FAULTS='{"scf": ["mol/seed"], "bond": ["mol/seed"],
-# "imaginary": ["mol/c001"], "crash": ["mol/minima"]}'. Each fault makes a real failure happen in the named
+# "imaginary": ["mol/c001"], "crash": ["mol/minima"], "dft_scf": ["mol/c001"]}'. Each fault makes a real failure happen in the named
 # place (an engine that raises, a stretched bond, a genuine saddle point, an unexpected error in a stage)
 # so the tests see the isolation machinery work. Unset in normal use.
 def fault(kind: str, where: str) -> bool:
@@ -427,6 +427,8 @@ def _refine_one(job):
     name, cid, key, rs, es, solvent, xyz, out_json, scratch = job
     p = load_molecule(name)
     atoms = atoms_from_xyz(xyz)
+    if fault("dft_scf", f"{name}/{cid}"):
+        rs = dict(rs, max_cycle=1)     # a real SCF that cannot converge in one iteration, fallback included
     res = cq_refine.single_point(atoms, p.charge, p.multiplicity, rs, threads=1, scratch_dir=scratch,
                                  solvent=solvent)
     solv = 0.0
@@ -469,7 +471,9 @@ def stage_refine(cfg, plan, name, threads=1):
             if c["conformer"] not in selected:
                 continue
             xyz = folder / "work" / "thermo" / f"{c['conformer']}.xyz"
-            key = key_of(xyz.read_text(), rs, es, __version__)
+            # the selection window and the memory cap do not change a single point: not in the key
+            key = key_of(xyz.read_text(), {k: v for k, v in rs.items() if k not in ("window_kcal", "max_memory_mb")},
+                         es, __version__)
             out_json = folder / "work" / "refine" / f"{c['conformer']}.json"
             if out_json.is_file():
                 old = fileio.read_json(out_json)

@@ -791,3 +791,47 @@ def test_symlinked_molecule_folder_cannot_lead_writes_outside(tmp_path):
     else:
         assert proc.returncode == 0, tail(proc.stderr)
         assert not (out / "mch").is_symlink() and (out / "mch" / "substituents.csv").is_file()
+
+
+# ----------------------------------------------------------------------- 5. DFT refinement stage
+# Hartree-Fock/STO-3G keeps the single points to a second each: the stage's bookkeeping is under test
+# here, not the level (tests/test_end_to_end.py checks the default level against CCSD(T)/CBS).
+CHEAP_REFINE = {**NO_TWIST_BOATS, "refine": {"functional": "HF", "basis": "STO-3G", "dispersion": "none",
+                                             "density_fitting": False, "window_kcal": 0.0}}
+
+
+@pytest.mark.slow
+def test_refine_failure_is_isolated_then_retried_and_finished_records_are_kept(tmp_path):
+    pytest.importorskip("pyscf")
+    cfg = write_config(tmp_path / "refine.yaml", [{"name": "mch", "smiles": "CC1CCCCC1"}], CHEAP_REFINE)
+    out = tmp_path / "out"
+    # 1. one single point's SCF cannot converge: reported in refine.csv, the molecule still finishes
+    proc = chairqm_run(cfg, out, cores=2, env=clean_env(CHAIRQM_FAULTS=json.dumps({"dft_scf": ["mch/c001"]})))
+    assert proc.returncode == 0, tail(proc.stderr)
+    rc = _table(out, "mch", "refine.csv").set_index("conformer")
+    assert rc.loc["c001", "status"] == "failed" and "not converged" in rc.loc["c001", "reason"]
+    ok = [c for c in rc.index if rc.loc[c, "status"] == "ok"]
+    assert len(ok) == 1                      # window 0: the two chair families' lowest, one of them failed
+    assert _summary(out, "mch")["status"] == "ok" and str(_summary(out, "mch")["refined"]) == "True"
+    conf = _table(out, "mch", "conformers.csv").set_index("conformer")
+    assert str(conf.loc["c001", "refined_single_point"]) == "False"   # carries the mean shift instead
+    assert "failed" in (out / "report.html").read_text()
+    kept = out / "mch" / "work" / "refine" / f"{ok[0]}.json"
+    stamp = kept.stat().st_mtime_ns
+    # 2. a forced rerun of the stage without the fault retries the failed single point only
+    proc = chairqm_run(cfg, out, cores=2, extra=["--forcerun", "refine"])
+    assert proc.returncode == 0, tail(proc.stderr)
+    rc = _table(out, "mch", "refine.csv").set_index("conformer")
+    assert set(rc["status"]) == {"ok"}
+    assert kept.stat().st_mtime_ns == stamp
+    assert str(_table(out, "mch", "conformers.csv").set_index("conformer").loc["c001", "refined_single_point"]) == "True"
+    # 3. a wider selection window reruns the stage but reuses every finished single point: the window
+    #    does not change a single point, so it is not part of the record's key
+    stamps = {f.name: f.stat().st_mtime_ns for f in (out / "mch" / "work" / "refine").glob("*.json")}
+    wider = write_config(tmp_path / "refine.yaml", [{"name": "mch", "smiles": "CC1CCCCC1"}],
+                         deep_merge(CHEAP_REFINE, {"refine": {"window_kcal": 0.5}}))
+    proc = chairqm_run(wider, out, cores=2)
+    assert proc.returncode == 0, tail(proc.stderr)
+    assert json.loads((out / "mch" / "refine.json").read_text())["settings"]["window_kcal"] == 0.5  # it did rerun
+    for name, stamp in stamps.items():
+        assert (out / "mch" / "work" / "refine" / name).stat().st_mtime_ns == stamp, name
