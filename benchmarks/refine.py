@@ -119,6 +119,8 @@ def main(argv=None) -> int:
     ap.add_argument("--quick", action="store_true", help="seconds-long CI subset")
     ap.add_argument("--levels", action="store_true", help="time one single point at each level in LEVELS")
     ap.add_argument("--run", action="append", default=[], help="summarise a finished refined run folder (repeatable)")
+    ap.add_argument("--level", action="append", default=[], metavar="FUNCTIONAL/BASIS",
+                    help="with --levels: time only these levels (repeatable), e.g. B3LYP/def2-SVP")
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--threads", type=int, default=1, help="PySCF threads per single point (the workflow uses 1)")
     ap.add_argument("--json", default=None, help="also write the results to this JSON file")
@@ -132,7 +134,8 @@ def main(argv=None) -> int:
         print("\nwater, one single point (median of 3)\n" + C.table(rows))
         result["quick"] = rows
     if args.levels:
-        rows = _time_levels(_methylcyclohexane_equatorial(), LEVELS, args.repeats, args.threads)
+        levels = [dict(zip(("functional", "basis"), x.split("/", 1))) for x in args.level] or LEVELS
+        rows = _time_levels(_methylcyclohexane_equatorial(), levels, args.repeats, args.threads)
         print(f"\nmethylcyclohexane equatorial chair, one single point per level (median of {args.repeats})\n"
               + C.table(rows))
         result["levels"] = rows

@@ -123,7 +123,8 @@ def test_good_config_prints_table_and_writes_nothing(tmp_path, write_config, cap
     assert sorted(os.listdir(tmp_path)) == ["config.yaml"]
 
 
-def test_demo_config_checks(capsys):
+@pytest.mark.parametrize("name", ["demo.yaml", "demo-refine.yaml", "reference.yaml"])
+def test_shipped_configs_check(name, capsys):
     from pathlib import Path
-    demo = Path(__file__).resolve().parent.parent / "configs" / "demo.yaml"
-    assert cli.main(["check", str(demo)]) == 0
+    path = Path(__file__).resolve().parent.parent / "configs" / name
+    assert cli.main(["check", str(path)]) == 0
