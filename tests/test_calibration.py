@@ -197,6 +197,21 @@ def test_shipped_calibration_matches_default_settings():
     assert lo < y < hi
 
 
+def test_shipped_calibration_has_the_default_refinement_level():
+    pytest.importorskip("pyscf")
+    c = cal.load_matching({**_defaults(), "refine": {}})
+    assert c is not None, "no calibration for refined runs at the default DFT level"
+    assert c.settings["refine"] == cal.settings_key({"refine": {}})["refine"]
+    assert c.n >= 20
+    pts = pd.DataFrame(c.points)
+    used = pts[pts["used"] == "used"]
+    again = cal.fit(used["computed_kcal"], used["experimental_kcal"])
+    assert again.slope == pytest.approx(c.slope, rel=1e-9) and again.rmse_kcal == pytest.approx(c.rmse_kcal, rel=1e-9)
+    # the refined and unrefined computed values differ: the two calibrations are fits to different numbers
+    assert c.slope != pytest.approx(cal.load_matching(_defaults()).slope, rel=1e-6)
+    assert cal.load_matching({**_defaults(), "refine": {"basis": "def2-SVP"}}) is None
+
+
 def test_shipped_calibration_does_not_match_other_settings():
     assert cal.load_matching({**_defaults(), "solvent": {"model": "alpb", "name": "water"}}) is None
 
