@@ -137,6 +137,16 @@ def resolve(settings) -> dict:
     return s
 
 
+# settings that choose which conformers are refined or how much memory PySCF may take, not the energy
+_NOT_ENERGY = ("window_kcal", "max_memory_mb")
+
+
+def energy_settings(settings) -> dict:
+    """The resolved settings that change a single point's energy (everything but the selection window
+    and the memory cap): what a cached single-point record is keyed by."""
+    return {k: v for k, v in resolve(settings).items() if k not in _NOT_ENERGY}
+
+
 def _did_you_mean(name, valid) -> str:
     close = difflib.get_close_matches(str(name).lower(), [str(v).lower() for v in valid], n=1, cutoff=0.6)
     return f" Did you mean {close[0]!r}?" if close else ""

@@ -471,9 +471,7 @@ def stage_refine(cfg, plan, name, threads=1):
             if c["conformer"] not in selected:
                 continue
             xyz = folder / "work" / "thermo" / f"{c['conformer']}.xyz"
-            # the selection window and the memory cap do not change a single point: not in the key
-            key = key_of(xyz.read_text(), {k: v for k, v in rs.items() if k not in ("window_kcal", "max_memory_mb")},
-                         es, __version__)
+            key = key_of(xyz.read_text(), cq_refine.energy_settings(rs), es, __version__)
             out_json = folder / "work" / "refine" / f"{c['conformer']}.json"
             if out_json.is_file():
                 old = fileio.read_json(out_json)
