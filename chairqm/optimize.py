@@ -54,6 +54,7 @@ import numpy as np
 from ase import Atoms
 from ase.data import covalent_radii
 
+from chairqm import chem
 from chairqm.engine import CountingCalculator
 from chairqm.errors import ChairqmError
 from chairqm.units import BOHR_A, HARTREE_EV
@@ -372,31 +373,10 @@ def check_bonds(ref_pairs, atoms: Atoms, scale: float = BOND_SCALE) -> tuple[boo
 
 
 # ------------------------------------------------------------------------------------------------ stereo
-def _with_positions(mol, positions):
-    from rdkit import Chem
-    from rdkit.Geometry import Point3D
-
-    pos = np.asarray(positions, dtype=float)
-    if pos.shape != (mol.GetNumAtoms(), 3):
-        raise ValueError(f"positions have shape {pos.shape}, molecule has {mol.GetNumAtoms()} atoms")
-    copy = Chem.Mol(mol)
-    copy.RemoveAllConformers()
-    conf = Chem.Conformer(mol.GetNumAtoms())
-    for k, (x, y, z) in enumerate(pos):
-        conf.SetAtomPosition(k, Point3D(float(x), float(y), float(z)))
-    conf.Set3D(True)
-    copy.AddConformer(conf, assignId=True)
-    return copy
-
-
 def stereo_reference(mol, positions):
     """A copy of `mol` whose stereo is assigned from these 3D positions (e.g. the seed's), for checking
     centres the input left unspecified."""
-    from rdkit import Chem
-
-    copy = _with_positions(mol, positions)
-    Chem.AssignStereochemistryFrom3D(copy)
-    return copy
+    return chem.stereo_from_3d(mol, positions)
 
 
 def _double_bond_references(mol) -> dict:
@@ -426,14 +406,6 @@ def _double_bond_references(mol) -> dict:
     return out
 
 
-def _dihedral(p, a, b, c, d) -> float:
-    b0, b1, b2 = p[a] - p[b], p[c] - p[b], p[d] - p[c]
-    b1n = b1 / np.linalg.norm(b1)
-    v = b0 - np.dot(b0, b1n) * b1n
-    w = b2 - np.dot(b2, b1n) * b1n
-    return math.degrees(math.atan2(np.dot(np.cross(b1n, v), w), np.dot(v, w)))
-
-
 def check_stereo(mol, positions) -> tuple[bool, str]:
     """Compare the stereo of `mol` (RDKit Mol with Hs; its chiral tags and double-bond stereo are the
     reference) with stereo assigned from the 3D `positions` (same atom order).
@@ -455,8 +427,7 @@ def check_stereo(mol, positions) -> tuple[bool, str]:
     tagged = {a.GetIdx(): a.GetChiralTag() for a in mol.GetAtoms() if a.GetChiralTag() in tetra}
     stereo_bonds = {b.GetIdx() for b in mol.GetBonds() if b.GetStereo() not in (BS.STEREONONE, BS.STEREOANY)}
     pos = np.asarray(positions, dtype=float)
-    copy = _with_positions(mol, pos)
-    Chem.AssignStereochemistryFrom3D(copy)
+    copy = chem.stereo_from_3d(mol, pos)
     problems = []
     for idx, tag in sorted(tagged.items()):
         new = copy.GetAtomWithIdx(idx).GetChiralTag()
@@ -467,7 +438,7 @@ def check_stereo(mol, positions) -> tuple[bool, str]:
             problems.append(f"{sym}{idx} inverted")
     db_problems = []
     for bidx, (a, i, j, b, trans) in sorted(_double_bond_references(mol).items()):
-        phi = _dihedral(pos, a, i, j, b)
+        phi = chem.dihedral(pos[a], pos[i], pos[j], pos[b])
         now_trans = abs(phi) > 90.0
         if now_trans != trans:
             si, sj = mol.GetAtomWithIdx(i).GetSymbol(), mol.GetAtomWithIdx(j).GetSymbol()

@@ -35,6 +35,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import least_squares
 
+from .chem import dihedral
 from .errors import ChairqmError
 
 # ---- classification thresholds (degrees / Å); tested in tests/test_ring.py -------------------------
@@ -314,14 +315,3 @@ def ring_torsions(coords) -> np.ndarray:
         p0, p1, p2, p3 = (x[(j + i) % 6] for i in range(4))
         out.append(dihedral(p0, p1, p2, p3))
     return np.array(out)
-
-
-def dihedral(p0, p1, p2, p3) -> float:
-    """Torsion angle p0-p1-p2-p3 in degrees (IUPAC sign convention)."""
-    b0 = np.asarray(p0) - np.asarray(p1)
-    b1 = np.asarray(p2) - np.asarray(p1)
-    b2 = np.asarray(p3) - np.asarray(p2)
-    b1n = b1 / np.linalg.norm(b1)
-    v = b0 - (b0 @ b1n) * b1n
-    w = b2 - (b2 @ b1n) * b1n
-    return math.degrees(math.atan2(float(np.cross(b1n, v) @ w), float(v @ w)))

@@ -47,6 +47,7 @@ from rdkit.Chem import rdMolTransforms
 from rdkit.Geometry import Point3D
 from scipy.optimize import linear_sum_assignment
 
+from . import chem
 from . import ring as ringgeo
 from .errors import ChairqmError
 from .molecule import mirror_image
@@ -153,17 +154,6 @@ def check_settings(settings: dict | None) -> dict:
 
 
 # ---- small geometry helpers -------------------------------------------------------------------------
-def _fit(P, Q, improper=False):
-    """Rotation R (det +1, or -1 if improper) and shift minimising |R q + t - p| (Kabsch, Acta Cryst.
-    1976, A32, 922). Returns a function mapping coordinates of the Q frame into the P frame."""
-    pc, qc = P.mean(axis=0), Q.mean(axis=0)
-    H = (Q - qc).T @ (P - pc)
-    U, _, Vt = np.linalg.svd(H)
-    d = np.sign(np.linalg.det(Vt.T @ U.T)) or 1.0
-    R = Vt.T @ np.diag([1.0, 1.0, d * (-1.0 if improper else 1.0)]) @ U.T
-    return lambda X: (X - qc) @ R.T + pc
-
-
 def _bond_length(mol, i, j) -> float:
     pt = Chem.GetPeriodicTable()
     return pt.GetRcovalent(mol.GetAtomWithIdx(i).GetAtomicNum()) + pt.GetRcovalent(mol.GetAtomWithIdx(j).GetAtomicNum())
@@ -270,7 +260,7 @@ def _equivalent(ctx, XA, XB, atoms_heavy, h_of, tol_max, tol_rmsd=None, maps=Non
     atoms_heavy = np.asarray(atoms_heavy)
     for m, improper in (maps if maps is not None else ctx.maps):
         img = m[atoms_heavy]
-        T = _fit(XA[atoms_heavy], XB[img], improper)
+        T = chem.fit(XA[atoms_heavy], XB[img], improper)
         YB = T(XB)
         dev = list(np.linalg.norm(YB[img] - XA[atoms_heavy], axis=1))
         if max(dev) > tol_max:
@@ -315,13 +305,11 @@ def _skeleton(ctx, X, choice) -> dict:
 
 def _ring_tags(ctx, pos) -> dict:
     """Chiral tags RDKit perceives at the ring atoms from skeleton positions."""
-    tmp = Chem.Mol(ctx.mol)
-    conf = Chem.Conformer(tmp.GetNumAtoms())
+    X = np.zeros((ctx.mol.GetNumAtoms(), 3))       # atoms off the skeleton stay at the origin
     for i, p in pos.items():
-        conf.SetAtomPosition(int(i), Point3D(*map(float, p)))
-    conf.Set3D(True)
-    tmp.RemoveAllConformers()
-    cid = tmp.AddConformer(conf, assignId=True)
+        X[int(i)] = p
+    tmp = chem.with_positions(ctx.mol, X)
+    cid = tmp.GetConformer().GetId()
     Chem.AssignAtomChiralTagsFromStructure(tmp, confId=cid, replaceExistingTags=True)
     return {a: tmp.GetAtomWithIdx(a).GetChiralTag() for a in ctx.ring}
 
@@ -378,19 +366,11 @@ def _forcefield(ctx, conf_id, targets=None):
     return ff
 
 
-def _set_positions(ctx, X):
-    ctx.mol.RemoveAllConformers()
-    conf = Chem.Conformer(ctx.mol.GetNumAtoms())
-    conf.SetPositions(np.asarray(X, dtype=float))
-    conf.Set3D(True)
-    return ctx.mol.AddConformer(conf, assignId=True)
-
-
 def _relax(ctx, X, targets):
     """Force-field relaxation with ring-torsion restraints; returns (positions, energy kcal/mol or None, note)."""
     if ctx.forcefield is None:
         return np.array(X, dtype=float), None, "no force-field parameters (MMFF94, UFF): unrelaxed embedding"
-    cid = _set_positions(ctx, X)
+    cid = chem.set_positions(ctx.mol, X)
     ff = _forcefield(ctx, cid, targets)
     if ff is None:
         return np.array(X, dtype=float), None, f"{ctx.forcefield} set-up failed: unrelaxed embedding"
@@ -417,13 +397,7 @@ def _reference_stereo(mol):
 
 
 def _mismatch(mol, tags, bonds, X) -> list:
-    tmp = Chem.Mol(mol)
-    tmp.RemoveAllConformers()
-    conf = Chem.Conformer(tmp.GetNumAtoms())
-    conf.SetPositions(np.asarray(X, dtype=float))
-    conf.Set3D(True)
-    cid = tmp.AddConformer(conf, assignId=True)
-    Chem.AssignStereochemistryFrom3D(tmp, confId=cid)
+    tmp = chem.stereo_from_3d(mol, X)
     bad = [f"atom {i}" for i, t in tags.items() if tmp.GetAtomWithIdx(i).GetChiralTag() != t]
     bad += [f"bond {b}" for b, st in bonds.items() if tmp.GetBondWithIdx(b).GetStereo() != st]
     return bad
@@ -453,7 +427,7 @@ def _embed(ctx, pos, seed):
             X = np.array(ctx.mol.GetConformer(cid).GetPositions())
             keys = sorted(cmap)
             P = np.array([pos[i] for i in keys])
-            T = _fit(P, X[keys])
+            T = chem.fit(P, X[keys])
             X = np.round(T(X), DECIMALS_START)
             if np.max(np.linalg.norm(X[keys] - P, axis=1)) < 0.05:
                 return X
@@ -473,7 +447,7 @@ def _measure_into(ctx, seed: Seed, X, intended_form):
 
 def _frame(ctx, X, ring_xyz):
     """Put a structure into the template frame: ring atoms superposed on the template ring (proper fit)."""
-    T = _fit(ring_xyz, X[ctx.ring])
+    T = chem.fit(ring_xyz, X[ctx.ring])
     return np.round(T(X), DECIMALS_OUT) + 0.0
 
 
@@ -679,7 +653,7 @@ def _rotamers(ctx, base: Seed, Xbase, targets, ring_xyz, rotors, form) -> list[S
     heavy = np.asarray(ctx.heavy)
     for n, values in enumerate(starts):
         s = Seed(name=f"{base.name}-r{n + 1:0{width}d}", template=base.template, forcefield=ctx.forcefield)
-        cid = _set_positions(ctx, Xbase)
+        cid = chem.set_positions(ctx.mol, Xbase)
         conf = ctx.mol.GetConformer(cid)
         for (i, a, b, j), v in zip(rotors, values):
             rdMolTransforms.SetDihedralDeg(conf, i, a, b, j, float(v))

@@ -120,16 +120,9 @@ class _Comparer:
         self.red = _without_conformers(mol) if all_atoms else _reduced(mol, self.keep)
 
     def _with(self, pos):
-        from rdkit import Chem
-        from rdkit.Geometry import Point3D
+        from chairqm import chem
 
-        m = Chem.Mol(self.red)
-        conf = Chem.Conformer(m.GetNumAtoms())
-        for k, (x, y, z) in enumerate(np.asarray(pos, dtype=float)[self.keep]):
-            conf.SetAtomPosition(k, Point3D(float(x), float(y), float(z)))
-        conf.Set3D(True)
-        m.AddConformer(conf, assignId=True)
-        return m
+        return chem.with_positions(self.red, np.asarray(pos, dtype=float)[self.keep])
 
     def rmsd(self, pos_a, pos_b, reflect_b: bool = False) -> float:
         from rdkit.Chem import rdMolAlign
