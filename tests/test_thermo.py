@@ -1,5 +1,6 @@
-"""Tests of chairqm.thermo: point groups and symmetry numbers, RRHO against ase.thermochemistry, quasi-RRHO
-against hand-worked values of the published formulas, standard states, and GFN2-xTB entropies against NIST."""
+"""Tests of chairqm.symmetry and chairqm.thermo: point groups and symmetry numbers, RRHO against
+ase.thermochemistry, quasi-RRHO against hand-worked values of the published formulas, standard states, and
+GFN2-xTB entropies against NIST."""
 
 import os
 
@@ -15,16 +16,14 @@ from ase.thermochemistry import IdealGasThermo  # noqa: E402
 from ase.units import create_units  # noqa: E402
 
 from chairqm.errors import ChairqmError  # noqa: E402
+from chairqm.symmetry import detect_symmetry, is_chiral_point_group, symmetry_number  # noqa: E402
 from chairqm.thermo import (  # noqa: E402
-    detect_symmetry,
     free_rotor_entropy,
     harmonic_entropy,
-    is_chiral_point_group,
     qrrho_energy,
     qrrho_entropy,
     qrrho_weight,
     solution_standard_state_shift,
-    symmetry_number,
     thermochemistry,
 )
 

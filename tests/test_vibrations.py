@@ -224,7 +224,7 @@ def boat(gfn2):
 
 
 def test_boat_saddle_is_driven_to_a_twist_boat(gfn2, boat, tmp_path_factory):
-    from chairqm.thermo import symmetry_number
+    from chairqm.symmetry import symmetry_number
 
     atoms, energy = boat
     assert symmetry_number(atoms) == (2, "C2v")
