@@ -18,7 +18,7 @@ How a seed is made
 4. Build: RDKit EmbedMolecule with the skeleton atoms fixed (coordMap, fixed random seed), then a
    force-field relaxation (MMFF94, UFF where MMFF94 lacks parameters) with flat-bottomed restraints
    that keep every ring torsion within RING_TORSION_TOL of the template, so the ring form survives.
-5. Rotamers: every rotatable bond of the substituents gets a grid of start torsions (`rotor_grid`),
+5. Rotamers (chairqm.rotamers): every rotatable bond of the substituents gets a grid of start torsions,
    the product is enumerated (at most `max_rotamer_starts` starts, an evenly spaced subset beyond
    that), each start relaxed as in 4. Starts that reach the same structure, or one equivalent by
    symmetry, are merged; of the rest, those more than `ff_window_kcal` above the lowest rotamer of the
@@ -35,6 +35,7 @@ between processes.
 
 from __future__ import annotations
 
+import functools
 import itertools
 import math
 from dataclasses import dataclass, field
@@ -43,14 +44,11 @@ from pathlib import Path
 import numpy as np
 from rdkit import Chem, RDLogger
 from rdkit.Chem import AllChem
-from rdkit.Chem import rdMolTransforms
 from rdkit.Geometry import Point3D
-from scipy.optimize import linear_sum_assignment
 
-from . import chem
+from . import chem, rotamers, symmetry
 from . import ring as ringgeo
 from .errors import ChairqmError
-from .molecule import mirror_image
 
 RDLogger.DisableLog("rdApp.*")
 
@@ -79,10 +77,6 @@ TWIST_Q = 0.72          # Å, template amplitude of the twist-boats (MMFF94 cycl
 RING_TORSION_TOL = 10.0     # deg, flat-bottom half-width of the ring-torsion restraints
 RING_TORSION_K = 1.0e3      # force constant of those restraints (RDKit units, kcal/mol per rad^2)
 SKELETON_TOL = 0.02         # Å, max deviation for two skeletons to be symmetry-equivalent
-MERGE_RMSD = 0.10           # Å, all-atom RMSD under which two relaxed rotamers are the same structure
-MERGE_MAXDEV = 0.30         # Å, and the largest single-atom deviation
-MERGE_DE_KCAL = 0.10        # kcal/mol, energy difference beyond which two structures are never merged
-MAX_AUTOMORPHISMS = 5000    # RDKit substructure-match cap when enumerating symmetries
 # numpy's results can differ in the last bits between processes (memory alignment picks different SIMD
 # paths); coordinates are rounded at each hand-over so that the same input gives the same bytes.
 DECIMALS_TEMPLATE = 6       # Å, templates and skeletons
@@ -210,7 +204,7 @@ def _prepare(mol, ring, substituents, settings) -> _Context:
                  for i in heavy}
     ctx = _Context(mol=work, ring=ring, subs=list(substituents), settings=settings, ranks=ranks, exo=exo,
                    ref_tags=ref_tags, ref_bonds=ref_bonds, heavy=heavy, hydrogens=hydrogens)
-    ctx.maps = _symmetries(work, heavy, ring)
+    ctx.maps = symmetry.ring_automorphisms(work, ring)
     if AllChem.MMFFHasAllMoleculeParams(work):
         ctx.forcefield = "MMFF94"
         ctx.props = AllChem.MMFFGetMoleculeProperties(work)
@@ -218,70 +212,6 @@ def _prepare(mol, ring, substituents, settings) -> _Context:
     elif AllChem.UFFHasAllMoleculeParams(work):
         ctx.forcefield = "UFF"
     return ctx
-
-
-def _symmetries(work, heavy, ring):
-    """Stereo-preserving heavy-atom automorphisms (improper=False) and mirror mappings (improper=True)
-    that map the analysed ring onto itself, as integer arrays new_index[old] over all atoms (H: -1)."""
-    tagged = Chem.Mol(work)
-    for a in tagged.GetAtoms():
-        a.SetIntProp("_cq", a.GetIdx())
-    hmol = Chem.RemoveHs(tagged, sanitize=False)
-    idx = [a.GetIntProp("_cq") for a in hmol.GetAtoms()]
-    mirror = mirror_image(hmol)
-    ring_set = set(ring)
-    nh = [len([n for n in work.GetAtomWithIdx(i).GetNeighbors() if n.GetAtomicNum() == 1])
-          for i in range(work.GetNumAtoms())]
-    out, seen = [], set()
-    for improper, query in ((False, hmol), (True, mirror)):
-        for match in hmol.GetSubstructMatches(query, useChirality=True, uniquify=False,
-                                              maxMatches=MAX_AUTOMORPHISMS):
-            m = np.full(work.GetNumAtoms(), -1, dtype=int)
-            for qi, ti in enumerate(match):
-                m[idx[qi]] = idx[ti]
-            if {int(m[i]) for i in ring} != ring_set:
-                continue
-            if any(nh[i] != nh[m[i]] for i in idx):
-                continue
-            key = (improper, tuple(m.tolist()))
-            if key not in seen:
-                seen.add(key)
-                out.append((m, improper))
-    return out
-
-
-def _equivalent(ctx, XA, XB, atoms_heavy, h_of, tol_max, tol_rmsd=None, maps=None):
-    """Is structure B the same as A up to a symmetry of the molecule? Returns (bool, improper flag).
-
-    For each mapping m (A atom i sits where B atom m[i] sits) the heavy atoms are superposed (Kabsch,
-    proper or improper), hydrogens of each heavy atom are paired with those of its image by the
-    Hungarian method (scipy), and the deviations are compared with the tolerances.
-    """
-    atoms_heavy = np.asarray(atoms_heavy)
-    for m, improper in (maps if maps is not None else ctx.maps):
-        img = m[atoms_heavy]
-        T = chem.fit(XA[atoms_heavy], XB[img], improper)
-        YB = T(XB)
-        dev = list(np.linalg.norm(YB[img] - XA[atoms_heavy], axis=1))
-        if max(dev) > tol_max:
-            continue
-        ok = True
-        for i in atoms_heavy:
-            ha, hb = h_of.get(int(i), []), h_of.get(int(m[i]), [])
-            if len(ha) != len(hb):
-                ok = False
-                break
-            if not ha:
-                continue
-            D = np.linalg.norm(XA[ha][:, None, :] - YB[hb][None, :, :], axis=2)
-            r, c = linear_sum_assignment(D)
-            dev.extend(D[r, c].tolist())
-        if not ok or max(dev) > tol_max:
-            continue
-        if tol_rmsd is not None and math.sqrt(float(np.mean(np.square(dev)))) > tol_rmsd:
-            continue
-        return True, improper
-    return False, False
 
 
 # ---- skeletons --------------------------------------------------------------------------------------
@@ -445,72 +375,22 @@ def _measure_into(ctx, seed: Seed, X, intended_form):
     return notes
 
 
+def _relax_into(ctx, seed: Seed, X0, targets, ring_xyz, form):
+    """Relax start X0 with the ring restrained to `targets`, put it into the template frame and measure it
+    into `seed` (positions, labels, ff_energy_kcal); returns (notes, stereo mismatches)."""
+    Xr, energy, note = _relax(ctx, X0, targets)
+    Xr = _frame(ctx, Xr, ring_xyz)
+    notes = _measure_into(ctx, seed, Xr, form)
+    if note:
+        notes.append(note)
+    seed.ff_energy_kcal = energy
+    return notes, _stereo_mismatch(ctx, Xr)
+
+
 def _frame(ctx, X, ring_xyz):
     """Put a structure into the template frame: ring atoms superposed on the template ring (proper fit)."""
     T = chem.fit(ring_xyz, X[ctx.ring])
     return np.round(T(X), DECIMALS_OUT) + 0.0
-
-
-# ---- rotors -----------------------------------------------------------------------------------------
-def rotor_grid(mol, a: int, b: int) -> list[float]:
-    """Start torsions (deg) for a rotatable bond a-b, by hybridisation (common practice: staggered
-    minima of sp3-sp3 bonds, six-fold starts for sp3-sp2, planar s-cis/s-trans starts for sp2-sp2;
-    offsets keep starts off exact symmetric saddle points)."""
-    sp2 = (Chem.HybridizationType.SP2,)
-    ha = mol.GetAtomWithIdx(a).GetHybridization() in sp2 or mol.GetAtomWithIdx(a).GetIsAromatic()
-    hb = mol.GetAtomWithIdx(b).GetHybridization() in sp2 or mol.GetAtomWithIdx(b).GetIsAromatic()
-    if ha and hb:
-        return [10.0, 190.0]
-    if ha or hb:
-        return [15.0, 75.0, 135.0, 195.0, 255.0, 315.0]
-    return [60.0, 180.0, 300.0]
-
-
-def rotatable_bonds(mol, ring, substituents, ranks=None) -> list[tuple[int, int, int, int]]:
-    """Rotatable bonds of the substituents as dihedral quadruples (i, a, b, j), a nearer the ring.
-
-    A bond counts if it is single, not in a ring, has a neighbour on both sides, neither end is sp
-    (linear), and neither end is a symmetric top (three graph-equivalent outer neighbours: CH3, CF3,
-    C(CH3)3), whose rotation gives no new conformer.
-    """
-    if ranks is None:
-        ranks = list(Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False))
-    ring = list(ring)
-    group = set()
-    for s in substituents:
-        group.update(int(i) for i in s.atoms)
-    if not group:
-        return []
-    dm = Chem.GetDistanceMatrix(mol)
-    dist = dm[:, ring].min(axis=1)
-    out = []
-    for bond in mol.GetBonds():
-        if bond.GetBondType() != Chem.BondType.SINGLE or bond.IsInRing():
-            continue
-        a, b = bond.GetBeginAtomIdx(), bond.GetEndAtomIdx()
-        if dist[a] > dist[b]:
-            a, b = b, a
-        if b not in group or (a not in group and a not in ring):
-            continue
-        A, B = mol.GetAtomWithIdx(a), mol.GetAtomWithIdx(b)
-        if Chem.HybridizationType.SP in (A.GetHybridization(), B.GetHybridization()):
-            continue
-        na = [n.GetIdx() for n in A.GetNeighbors() if n.GetIdx() != b]
-        nb = [n.GetIdx() for n in B.GetNeighbors() if n.GetIdx() != a]
-        if not na or not nb:
-            continue
-        if len(nb) == 3 and len({ranks[i] for i in nb}) == 1:
-            continue
-        if len(na) == 3 and len({ranks[i] for i in na}) == 1:
-            continue
-
-        def pick(ns):
-            heavy = [i for i in ns if mol.GetAtomWithIdx(i).GetAtomicNum() > 1]
-            return min(heavy) if heavy else min(ns)
-
-        out.append((pick(na), a, b, pick(nb)))
-    out.sort(key=lambda t: (dist[t[1]], t[1], t[2]))
-    return out
 
 
 # ---- the public entry points ------------------------------------------------------------------------
@@ -560,7 +440,10 @@ def build_seeds(mol, ring, substituents, settings=None) -> list[Seed]:
     n_atoms = ctx.mol.GetNumAtoms()
     out: list[Seed] = []
     kept_skeletons = []          # (name, form, skeleton array)
-    rotors = rotatable_bonds(ctx.mol, ctx.ring, ctx.subs, ctx.ranks)
+    rotors = rotamers.rotatable_bonds(ctx.mol, ctx.ring, ctx.subs, ctx.ranks)
+    same_rotamer = functools.partial(symmetry.equivalent_structures, maps=ctx.maps, atoms_heavy=np.asarray(ctx.heavy),
+                                     h_of=dict(ctx.hydrogens), tol_max=rotamers.MERGE_MAXDEV,
+                                     tol_rmsd=rotamers.MERGE_RMSD)
 
     for name, tpl, combo in cands:
         X = ring_xyz[tpl.name]
@@ -582,7 +465,7 @@ def build_seeds(mol, ring, substituents, settings=None) -> list[Seed]:
         for kname, kform, KS in kept_skeletons:
             if kform != tpl.form:
                 continue
-            same, improper = _equivalent(ctx, KS, S, skel_heavy, skel_h, SKELETON_TOL, maps=skel_maps)
+            same, improper = symmetry.equivalent_structures(KS, S, skel_maps, skel_heavy, skel_h, SKELETON_TOL)
             if same:
                 merged_with = (kname, improper)
                 break
@@ -600,13 +483,9 @@ def build_seeds(mol, ring, substituents, settings=None) -> list[Seed]:
             out.append(seed)
             continue
         targets = np.round(ringgeo.ring_torsions(X), 4)
-        Xr, energy, note = _relax(ctx, Xb, targets)
-        Xr = _frame(ctx, Xr, X)
-        notes = _measure_into(ctx, seed, Xr, tpl.form)
-        if note:
-            notes.append(note)
-        seed.ff_energy_kcal = energy
-        mismatch = _stereo_mismatch(ctx, Xr)
+        relax = functools.partial(_relax_into, ctx, targets=targets, ring_xyz=X, form=tpl.form)
+        notes, mismatch = relax(seed, Xb)
+        Xr = seed.positions
         if mismatch:
             seed.status = "failed"
             seed.reason = "; ".join([f"stereo from 3D differs from the input at {', '.join(mismatch)}"] + notes)
@@ -625,85 +504,13 @@ def build_seeds(mol, ring, substituents, settings=None) -> list[Seed]:
             seed.reason = "; ".join(notes)
             out.append(seed)
             continue
-        out.extend(_rotamers(ctx, seed, Xr, targets, X, rotors, tpl.form))
+        out.extend(rotamers.enumerate_rotamers(ctx.mol, seed, Xr, rotors, settings, relax, same_rotamer,
+                                               DECIMALS_START))
 
     for tpl in skipped:
         out.append(Seed(name=tpl.name, template=tpl.name, status="screened",
                         reason="twist-boats switched off (seeds.twist_boats = false)"))
     return out
-
-
-def _rotamers(ctx, base: Seed, Xbase, targets, ring_xyz, rotors, form) -> list[Seed]:
-    settings = ctx.settings
-    grids = [rotor_grid(ctx.mol, a, b) for (_, a, b, _) in rotors]
-    total = int(np.prod([len(g) for g in grids]))
-    cap = settings["max_rotamer_starts"]
-    if total > cap:
-        pick = sorted(set(np.round(np.linspace(0, total - 1, cap)).astype(int).tolist()))
-    else:
-        pick = list(range(total))
-    all_combos = itertools.product(*grids)
-    chosen = set(pick)
-    starts = [c for n, c in enumerate(all_combos) if n in chosen]
-    width = max(2, len(str(len(starts))))
-    subset = f" (evenly spaced subset of {total} grid points)" if total > cap else ""
-    seeds: list[Seed] = []
-    kept: list[Seed] = []
-    h_of = {i: hs for i, hs in ctx.hydrogens.items()}
-    heavy = np.asarray(ctx.heavy)
-    for n, values in enumerate(starts):
-        s = Seed(name=f"{base.name}-r{n + 1:0{width}d}", template=base.template, forcefield=ctx.forcefield)
-        cid = chem.set_positions(ctx.mol, Xbase)
-        conf = ctx.mol.GetConformer(cid)
-        for (i, a, b, j), v in zip(rotors, values):
-            rdMolTransforms.SetDihedralDeg(conf, i, a, b, j, float(v))
-        X0 = np.round(np.array(conf.GetPositions()), DECIMALS_START)
-        Xr, energy, note = _relax(ctx, X0, targets)
-        Xr = _frame(ctx, Xr, ring_xyz)
-        notes = [f"start {n + 1} of {len(starts)}{subset}: torsions "
-                 + ",".join(f"{v:g}" for v in values)]
-        notes += _measure_into(ctx, s, Xr, form)
-        if note:
-            notes.append(note)
-        s.ff_energy_kcal = energy
-        mismatch = _stereo_mismatch(ctx, Xr)
-        if mismatch:
-            s.status = "failed"
-            s.reason = "; ".join([f"stereo from 3D differs from the input at {', '.join(mismatch)}"] + notes)
-            seeds.append(s)
-            continue
-        for k in kept:
-            if (energy is not None and k.ff_energy_kcal is not None
-                    and abs(energy - k.ff_energy_kcal) > MERGE_DE_KCAL):
-                continue
-            same, improper = _equivalent(ctx, k.positions, Xr, heavy, h_of, MERGE_MAXDEV, MERGE_RMSD)
-            if same:
-                s.status, s.equivalent_to = "merged", k.name
-                s.reason = "; ".join([f"same structure as {k.name} after relaxation"
-                                      + (" (mirror image)" if improper else "")] + notes)
-                break
-        if s.status != "merged":
-            kept.append(s)
-            s.reason = "; ".join(notes)
-        seeds.append(s)
-
-    # energy window and cap, within this ring-level form
-    with_e = [s for s in kept if s.ff_energy_kcal is not None]
-    if with_e:
-        emin = min(s.ff_energy_kcal for s in with_e)
-        for s in with_e:
-            de = s.ff_energy_kcal - emin
-            if de > settings["ff_window_kcal"]:
-                s.status = "screened"
-                s.reason = (f"force-field energy {de:.2f} kcal/mol above the best rotamer of this form "
-                            f"exceeds the window of {settings['ff_window_kcal']:g} kcal/mol; " + s.reason)
-    alive = [s for s in kept if s.status == "ok"]
-    order = sorted(alive, key=lambda s: (s.ff_energy_kcal if s.ff_energy_kcal is not None else math.inf, s.name))
-    for s in order[settings["max_rotamers_per_form"]:]:
-        s.status = "screened"
-        s.reason = (f"beyond the cap of {settings['max_rotamers_per_form']} rotamers per form "
-                    f"(seeds.max_rotamers_per_form); " + s.reason)
-    return seeds
 
 
 def seeds_table(seeds):

@@ -1,4 +1,4 @@
-"""Point group and rotational symmetry number of a molecular geometry, found with a distance tolerance.
+"""Symmetry of geometries: point group and rotational symmetry number, and structures equal up to a symmetry.
 
 - :func:`detect_symmetry`: the point group (Schoenflies symbol), the rotational symmetry number σ (the
   order of the proper-rotation subgroup) and whether the geometry is chiral.
@@ -8,6 +8,9 @@
   ensemble's business; the rule this module supports: σ counts only rotations, so a chiral conformer of
   an achiral molecule (e.g. the D2 twist-boat of cyclohexane) stands for itself and its enantiomer of
   equal G, and gets degeneracy 2 (−RT ln 2 in G) when it is listed once.
+- :func:`ring_automorphisms` / :func:`equivalent_structures`: whether two structures of one molecule are
+  the same up to a permutation of symmetry-equivalent atoms combined with a rotation (or a reflection),
+  what chairqm.seeds and chairqm.rotamers merge by.
 
 Positions in Å; masses (for the centre) from ase.data.
 """
@@ -20,9 +23,12 @@ from dataclasses import dataclass
 
 import numpy as np
 from ase import Atoms
+from rdkit import Chem
+from scipy.optimize import linear_sum_assignment
 
 from chairqm import chem
 from chairqm.errors import ChairqmError
+from chairqm.molecule import mirror_image
 
 #: Default distance tolerance (Å) of the point-group detection.  An operation counts if it maps every
 #: atom onto an atom of the same element within this distance.  GFN2-xTB optimisations to fmax 0.005 eV/Å
@@ -299,3 +305,78 @@ def is_chiral_point_group(point_group: str) -> bool:
     if pg.startswith(("C", "D")) and pg[1:].isdigit():
         return True
     return False
+
+
+# ===================================================================== structures equal up to a symmetry
+#: RDKit substructure-match cap when enumerating the automorphisms of a molecule
+MAX_AUTOMORPHISMS = 5000
+
+
+def ring_automorphisms(work, ring, max_matches: int = MAX_AUTOMORPHISMS) -> list[tuple[np.ndarray, bool]]:
+    """Stereo-preserving heavy-atom automorphisms (improper=False) and mirror mappings (improper=True) of
+    the RDKit molecule `work` (explicit H, stereo assigned) that map `ring` onto itself and keep every heavy
+    atom's hydrogen count, as (integer array new_index[old] over all atoms (H: -1), improper) pairs.
+    Found as RDKit substructure matches of the molecule (and of its mirror image) onto itself, with
+    chirality, at most `max_matches` of each."""
+    tagged = Chem.Mol(work)
+    for a in tagged.GetAtoms():
+        a.SetIntProp("_cq", a.GetIdx())
+    hmol = Chem.RemoveHs(tagged, sanitize=False)
+    idx = [a.GetIntProp("_cq") for a in hmol.GetAtoms()]
+    mirror = mirror_image(hmol)
+    ring_set = set(ring)
+    nh = [len([n for n in work.GetAtomWithIdx(i).GetNeighbors() if n.GetAtomicNum() == 1])
+          for i in range(work.GetNumAtoms())]
+    out, seen = [], set()
+    for improper, query in ((False, hmol), (True, mirror)):
+        for match in hmol.GetSubstructMatches(query, useChirality=True, uniquify=False,
+                                              maxMatches=max_matches):
+            m = np.full(work.GetNumAtoms(), -1, dtype=int)
+            for qi, ti in enumerate(match):
+                m[idx[qi]] = idx[ti]
+            if {int(m[i]) for i in ring} != ring_set:
+                continue
+            if any(nh[i] != nh[m[i]] for i in idx):
+                continue
+            key = (improper, tuple(m.tolist()))
+            if key not in seen:
+                seen.add(key)
+                out.append((m, improper))
+    return out
+
+
+def equivalent_structures(XA, XB, maps, atoms_heavy, h_of, tol_max, tol_rmsd=None) -> tuple[bool, bool]:
+    """Is structure B the same as A up to a symmetry of the molecule? Returns (bool, improper flag).
+
+    XA, XB: positions (Å) in the molecule's atom order; maps: (mapping, improper) pairs as
+    :func:`ring_automorphisms` gives them; atoms_heavy: the heavy atoms compared; h_of: heavy atom → its
+    hydrogens.  For each mapping m (A atom i sits where B atom m[i] sits) the heavy atoms are superposed
+    (Kabsch, proper or improper; chairqm.chem.fit), hydrogens of each heavy atom are paired with those of
+    its image by the Hungarian method (scipy.optimize.linear_sum_assignment), and the largest deviation is
+    compared with `tol_max` and, if given, their root mean square with `tol_rmsd` (Å).
+    """
+    atoms_heavy = np.asarray(atoms_heavy)
+    for m, improper in maps:
+        img = m[atoms_heavy]
+        T = chem.fit(XA[atoms_heavy], XB[img], improper)
+        YB = T(XB)
+        dev = list(np.linalg.norm(YB[img] - XA[atoms_heavy], axis=1))
+        if max(dev) > tol_max:
+            continue
+        ok = True
+        for i in atoms_heavy:
+            ha, hb = h_of.get(int(i), []), h_of.get(int(m[i]), [])
+            if len(ha) != len(hb):
+                ok = False
+                break
+            if not ha:
+                continue
+            D = np.linalg.norm(XA[ha][:, None, :] - YB[hb][None, :, :], axis=2)
+            r, c = linear_sum_assignment(D)
+            dev.extend(D[r, c].tolist())
+        if not ok or max(dev) > tol_max:
+            continue
+        if tol_rmsd is not None and math.sqrt(float(np.mean(np.square(dev)))) > tol_rmsd:
+            continue
+        return True, improper
+    return False, False

@@ -11,9 +11,11 @@ import pytest
 from rdkit import Chem
 from rdkit.Chem import AllChem
 
+from chairqm import rotamers
 from chairqm import seeds as S
+from chairqm.chem import dihedral
 from chairqm.errors import ChairqmError
-from chairqm.ring import classify, cremer_pople, dihedral
+from chairqm.ring import classify, cremer_pople
 
 
 def prepare(smiles):
@@ -252,7 +254,7 @@ def test_rotatable_bonds_found():
                       ("CC(C)C1CCCCC1", 1), ("COC(=O)C1CCCCC1", 2), ("c1ccccc1C1CCCCC1", 1),
                       ("OC1CCCCC1", 1), ("N#CC1CCCCC1", 0)]:
         mol, ring, subs = prepare(smiles)
-        assert len(S.rotatable_bonds(mol, ring, subs)) == n, smiles
+        assert len(rotamers.rotatable_bonds(mol, ring, subs)) == n, smiles
 
 
 # ---- stereo, bookkeeping, determinism -------------------------------------------------------------
