@@ -1,5 +1,6 @@
-"""DFT refinement: PySCF single points against published energies, D3 against published parameters,
-the composite free energy and the conformer selection by hand, settings checks, failure isolation."""
+"""DFT refinement (chairqm.dft, chairqm.refine): PySCF single points against published energies, D3 against
+published parameters, the composite free energy and the conformer selection by hand, settings checks,
+failure isolation."""
 
 import os
 
@@ -16,6 +17,7 @@ from ase.build import molecule
 pyscf = pytest.importorskip("pyscf")
 dftd3_interface = pytest.importorskip("dftd3.interface")
 
+from chairqm import dft as cq_dft  # noqa: E402
 from chairqm import refine  # noqa: E402
 from chairqm.errors import ChairqmError  # noqa: E402
 from chairqm.units import BOHR_A, KCAL_PER_HARTREE  # noqa: E402
@@ -38,9 +40,9 @@ def test_hf_sto3g_water_reproduces_the_published_total_energy():
     # Crawford group programming projects, Project #3: nuclear repulsion 8.002367061810450 Eh and
     # RHF/STO-3G total energy -74.942079928192 Eh at this geometry (from memory).
     w = water_crawford()
-    mol = refine.build_mole(w, 0, 1, "STO-3G")
+    mol = cq_dft.build_mole(w, 0, 1, "STO-3G")
     assert mol.energy_nuc() == pytest.approx(8.002367061810450, abs=1e-8)
-    r = refine.single_point(w, 0, 1, HF_STO3G)
+    r = cq_dft.single_point(w, 0, 1, HF_STO3G)
     assert r["converged"] and r["message"] == ""
     assert r["e_disp"] == 0.0
     assert r["energy_hartree"] == pytest.approx(-74.942079928192, abs=1e-6)
@@ -51,7 +53,7 @@ def test_hf_sto3g_water_at_the_experimental_geometry_matches_szabo_ostlund():
     # STO-3G energy -74.963 Eh (from memory; published to 1 mEh).
     r, ang = 1.809 * BOHR_A, math.radians(104.52)
     w = Atoms("OHH", positions=[[0, 0, 0], [r, 0, 0], [r * math.cos(ang), r * math.sin(ang), 0]])
-    res = refine.single_point(w, 0, 1, HF_STO3G)
+    res = cq_dft.single_point(w, 0, 1, HF_STO3G)
     assert res["energy_hartree"] == pytest.approx(-74.963, abs=6e-4)
 
 
@@ -75,7 +77,7 @@ def water_experimental() -> Atoms:
 def test_water_def2svp_energy_matches_psi4_to_a_microhartree(functional):
     settings = {"functional": functional, "basis": "def2-SVP", "dispersion": "none", "density_fitting": False,
                 "grid_level": 9, "conv_tol": 1e-11}
-    r = refine.single_point(water_experimental(), 0, 1, settings)
+    r = cq_dft.single_point(water_experimental(), 0, 1, settings)
     assert r["converged"] and r["e_disp"] == 0.0
     assert r["energy_hartree"] == pytest.approx(PSI4_WATER_DEF2SVP[functional], abs=1e-6)
 
@@ -83,7 +85,7 @@ def test_water_def2svp_energy_matches_psi4_to_a_microhartree(functional):
 def test_density_fitting_costs_water_far_less_than_a_millihartree():
     # the def2 JKFIT auxiliary basis: density-fitting errors in total energies are ~1e-5 Eh per atom
     # (Weigend, J. Comput. Chem. 2008, 29, 167; from memory); relative conformer energies cancel them
-    r = refine.single_point(water_experimental(), 0, 1, {"basis": "def2-SVP", "dispersion": "none"})
+    r = cq_dft.single_point(water_experimental(), 0, 1, {"basis": "def2-SVP", "dispersion": "none"})
     assert abs(r["energy_hartree"] - PSI4_WATER_DEF2SVP["B3LYP"]) < 1e-4
 
 
@@ -116,7 +118,7 @@ def test_d3bj_uses_the_published_b3lyp_parameters():
     # J. Comput. Chem. 2011, 32, 1456, Table 2; from memory). Two-body only.
     a = molecule("CH3CH2OH")
     ref = _d3_reference(a, dftd3_interface.RationalDampingParam(s6=1.0, a1=0.3981, s8=1.9889, a2=4.4211, s9=0.0))
-    e = refine.dispersion_energy(a.get_atomic_numbers(), a.get_positions(), "B3LYP", "d3bj")
+    e = cq_dft.dispersion_energy(a.get_atomic_numbers(), a.get_positions(), "B3LYP", "d3bj")
     assert e < 0
     assert e == pytest.approx(ref, abs=1e-10)
 
@@ -126,9 +128,9 @@ def test_d3zero_uses_the_published_b3lyp_parameters():
     # 132, 154104, Table IV; from memory); sr8 = 1 and alpha = 14 by construction. Two-body only.
     a = molecule("CH3CH2OH")
     ref = _d3_reference(a, dftd3_interface.ZeroDampingParam(s6=1.0, rs6=1.261, s8=1.703, s9=0.0))
-    e = refine.dispersion_energy(a.get_atomic_numbers(), a.get_positions(), "B3LYP", "d3zero")
+    e = cq_dft.dispersion_energy(a.get_atomic_numbers(), a.get_positions(), "B3LYP", "d3zero")
     assert e == pytest.approx(ref, abs=1e-10)
-    assert refine.dispersion_energy(a.get_atomic_numbers(), a.get_positions(), "B3LYP", "none") == 0.0
+    assert cq_dft.dispersion_energy(a.get_atomic_numbers(), a.get_positions(), "B3LYP", "none") == 0.0
 
 
 def test_b3lyp_d3bj_water_matches_pyscf_and_dftd3_computed_directly():
@@ -137,7 +139,7 @@ def test_b3lyp_d3bj_water_matches_pyscf_and_dftd3_computed_directly():
     from pyscf import dft, gto
 
     w = molecule("H2O")
-    r = refine.single_point(w, 0, 1, {"basis": "def2-SVP"})
+    r = cq_dft.single_point(w, 0, 1, {"basis": "def2-SVP"})
     mol = gto.M(atom=[(s, tuple(p)) for s, p in zip(w.get_chemical_symbols(), w.get_positions())],
                 basis="def2-SVP", unit="Angstrom", verbose=0)
     mf = dft.RKS(mol, xc="B3LYP").density_fit()
@@ -156,8 +158,8 @@ def test_thread_count_does_not_change_the_energy_and_is_restored():
     from pyscf import lib
     before = lib.num_threads()
     w = molecule("H2O")
-    r1 = refine.single_point(w, 0, 1, HF_STO3G, threads=1)
-    r2 = refine.single_point(w, 0, 1, HF_STO3G, threads=2)
+    r1 = cq_dft.single_point(w, 0, 1, HF_STO3G, threads=1)
+    r2 = cq_dft.single_point(w, 0, 1, HF_STO3G, threads=2)
     assert r1["energy_hartree"] == pytest.approx(r2["energy_hartree"], abs=1e-9)
     assert lib.num_threads() == before
 
@@ -165,7 +167,7 @@ def test_thread_count_does_not_change_the_energy_and_is_restored():
 def test_open_shell_uses_unrestricted_kohn_sham():
     # the methyl radical is a doublet: <S^2> = S(S+1) = 0.75 exactly, and a little spin contamination in
     # UKS (common practice: below 0.76 for a simple radical)
-    r = refine.single_point(molecule("CH3"), 0, 2, {"basis": "def2-SVP"})
+    r = cq_dft.single_point(molecule("CH3"), 0, 2, {"basis": "def2-SVP"})
     assert r["converged"]
     assert 0.75 <= r["spin_square"] < 0.76
 
@@ -174,11 +176,11 @@ def test_open_shell_uses_unrestricted_kohn_sham():
 def test_dielectric_constants_come_from_the_minnesota_table_with_tblite_names():
     # Minnesota Solvent Descriptor Database (Marenich et al. 2012): water 78.355, THF 7.4257, DMSO 46.826
     # (from memory)
-    assert refine.solvent_dielectric("water") == pytest.approx(78.355)
-    assert refine.solvent_dielectric("thf") == pytest.approx(7.4257)
-    assert refine.solvent_dielectric("dmso") == pytest.approx(46.826)
+    assert cq_dft.solvent_dielectric("water") == pytest.approx(78.355)
+    assert cq_dft.solvent_dielectric("thf") == pytest.approx(7.4257)
+    assert cq_dft.solvent_dielectric("dmso") == pytest.approx(46.826)
     with pytest.raises(ChairqmError, match="gfn2-delta"):
-        refine.solvent_dielectric("woctanol")
+        cq_dft.solvent_dielectric("woctanol")
 
 
 def test_pcm_hydrates_water_by_a_few_kcal_per_mol():
@@ -186,8 +188,8 @@ def test_pcm_hydrates_water_by_a_few_kcal_per_mol():
     # memory); a C-PCM electrostatic term alone lands within a few kcal/mol of it (common practice).
     w = molecule("H2O")
     solvent = {"model": "alpb", "name": "water"}
-    gas = refine.single_point(w, 0, 1, {}, solvent=solvent)          # default gfn2-delta: gas-phase DFT
-    pcm = refine.single_point(w, 0, 1, {"solvent_model": "pcm"}, solvent=solvent)
+    gas = cq_dft.single_point(w, 0, 1, {}, solvent=solvent)          # default gfn2-delta: gas-phase DFT
+    pcm = cq_dft.single_point(w, 0, 1, {"solvent_model": "pcm"}, solvent=solvent)
     assert gas["solvent_model"] == "gas" and pcm["solvent_model"] == "pcm"
     assert pcm["dielectric"] == pytest.approx(78.355)
     dg = (pcm["energy_hartree"] - gas["energy_hartree"]) * KCAL_PER_HARTREE
@@ -206,10 +208,10 @@ def test_gfn2_solvation_delta_is_solvated_minus_gas_energy():
         a = w.copy()
         a.calc = TBLite(method="GFN2-xTB", verbosity=0, **({"solvation": solv} if solv else {}))
         energies[key] = a.get_potential_energy() / Hartree
-    d = refine.xtb_solvation_hartree(w, es)
+    d = cq_dft.xtb_solvation_hartree(w, es)
     assert d == pytest.approx(energies["solv"] - energies["gas"], abs=1e-8)
     assert d < 0  # water is stabilised by water
-    assert refine.xtb_solvation_hartree(w, dict(es, solvent=None)) == 0.0
+    assert cq_dft.xtb_solvation_hartree(w, dict(es, solvent=None)) == 0.0
 
 
 # ----------------------------------------------------------------------------------------- composite
@@ -331,24 +333,36 @@ def test_check_rejects_charge_and_multiplicity_that_do_not_fit_the_electrons():
     refine.check({}, ["I"], 0, 2)
 
 
-def test_settings_schema_matches_the_defaults():
+def test_the_config_schema_is_the_one_home_of_the_refine_defaults():
     import jsonschema
 
-    props = refine.SETTINGS_SCHEMA["properties"]
-    assert set(props) == set(refine.DEFAULTS)
-    assert {k: v["default"] for k, v in props.items()} == refine.DEFAULTS
-    jsonschema.validate(refine.DEFAULTS, refine.SETTINGS_SCHEMA)
-    jsonschema.validate({}, refine.SETTINGS_SCHEMA)
+    from chairqm import config
+
+    block = config.load_schema()["properties"]["settings"]["properties"]["refine"]
+    assert block["default"] is None                                    # absent or null: no refinement
+    obj = next(b for b in block["oneOf"] if b.get("type") == "object")
+    props = obj["properties"]
+    resolved = refine.resolve({})
+    assert list(resolved) == list(props)
+    assert resolved == {k: v["default"] for k, v in props.items()}
+    # B3LYP-D3(BJ)/def2-TZVP is the level chosen by measurement on the held-out heterocycles (README,
+    # docs/accuracy.md), so it must be what {} gives
+    assert (resolved["functional"], resolved["basis"], resolved["dispersion"]) == ("B3LYP", "def2-TZVP", "d3bj")
+    jsonschema.validate(resolved, obj)
+    jsonschema.validate({}, obj)
     for bad in ({"basis": ""}, {"extra": 1}, {"dispersion": "d4"}, {"max_memory_mb": 10}, {"window_kcal": -1}):
         with pytest.raises(jsonschema.ValidationError):
-            jsonschema.validate(bad, refine.SETTINGS_SCHEMA)
+            jsonschema.validate(bad, obj)
+    # a configuration with refine: {} passes the schema, and resolving its block gives the same defaults
+    cfg = config.validate({"molecules": [{"name": "x", "smiles": "C1CCCCC1"}], "settings": {"refine": {}}})
+    assert refine.resolve(cfg["settings"]["refine"]) == resolved
     assert refine.resolve({"window_kcal": 2})["window_kcal"] == 2.0
-    assert refine.resolve(None) == refine.DEFAULTS
+    assert refine.resolve(None) == resolved
 
 
 # ------------------------------------------------------------------------------------------- failures
 def test_an_scf_that_does_not_converge_is_reported_not_raised():
-    r = refine.single_point(molecule("H2O"), 0, 1, {"max_cycle": 1})
+    r = cq_dft.single_point(molecule("H2O"), 0, 1, {"max_cycle": 1})
     assert r["converged"] is False
     assert r["energy_hartree"] is None
     assert "not converged" in r["message"] and "fallback" in r["message"]
@@ -359,14 +373,14 @@ def test_an_scf_that_crashes_is_reported_not_raised(monkeypatch):
         def kernel(self, *a, **k):
             raise np.linalg.LinAlgError("singular overlap")
 
-    monkeypatch.setattr(refine, "_scf_object", lambda *a, **k: Broken())
-    r = refine.single_point(molecule("H2O"), 0, 1, {})
+    monkeypatch.setattr(cq_dft, "_scf_object", lambda *a, **k: Broken())
+    r = cq_dft.single_point(molecule("H2O"), 0, 1, {})
     assert r["converged"] is False and r["energy_hartree"] is None
     assert "LinAlgError" in r["message"] and "singular overlap" in r["message"]
 
 
 def test_user_fixable_settings_raise_from_single_point():
     with pytest.raises(ChairqmError, match="6-31G"):
-        refine.single_point(Atoms("HI", positions=[[0, 0, 0], [0, 0, 1.61]]), 0, 1, {"basis": "6-31G*"})
+        cq_dft.single_point(Atoms("HI", positions=[[0, 0, 0], [0, 0, 1.61]]), 0, 1, {"basis": "6-31G*"})
     with pytest.raises(ChairqmError, match="multiplicity"):
-        refine.single_point(molecule("CH3"), 0, 1, {})
+        cq_dft.single_point(molecule("CH3"), 0, 1, {})
