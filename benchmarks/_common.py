@@ -79,13 +79,9 @@ def default_settings() -> dict:
 
 
 def calc_factory(p, settings: dict | None = None):
-    """The engine factory the minima stage uses for molecule `p` (chairqm.stages.CalcFactory)."""
-    from chairqm.stages import CalcFactory
-    s = settings or default_settings()
-    es = {"engine": s["engine"], "method": s["method"], "solvent": s.get("solvent"), "accuracy": s["accuracy"],
-          "electronic_temperature": s["electronic_temperature_k"], "charge": p.charge,
-          "multiplicity": p.multiplicity}
-    return CalcFactory(es)
+    """The engine factory the minima stage uses for molecule `p` (chairqm.stages.records.CalcFactory)."""
+    from chairqm.stages.records import CalcFactory, engine_settings
+    return CalcFactory(engine_settings(settings or default_settings(), p))
 
 
 def optimise_and_check(p, positions, optimizer: str = "auto", settings: dict | None = None) -> dict:

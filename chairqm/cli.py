@@ -14,7 +14,6 @@ from . import config as cq_config
 from .errors import ChairqmError
 
 EXIT_INPUT = 2
-STAGE_ORDER = ["intake", "seeds", "minima", "thermo", "refine"]
 
 
 def project_root() -> Path:
@@ -30,15 +29,28 @@ def snakefile() -> Path:
 
 
 def available_stages() -> list[str]:
-    """Stages whose rules exist in this version (read from the workflow's named end points)."""
-    targets = project_root() / "workflows" / "rules" / "targets.smk"
-    found = set(re.findall(r"^rule until_(\w+):", targets.read_text(), re.M)) if targets.is_file() else set()
-    return [s for s in STAGE_ORDER if s in found]
+    """Stages a run can stop after (`--until`), from the one stage registry."""
+    from . import stages
+    return stages.until_names()
 
 
-def full_run_available() -> bool:
-    targets = project_root() / "workflows" / "rules" / "targets.smk"
-    return targets.is_file() and re.search(r"^rule all:", targets.read_text(), re.M) is not None
+def failed_stage_targets(out: Path, plan, settings) -> list[str]:
+    """The first output of every stage that failed for a molecule in an earlier run (its failed.json):
+    Snakemake counts that stage's empty outputs as up to date, so a plain rerun would keep the molecule
+    failed. Passing these to --forcerun recomputes the failed stage and everything after it."""
+    from . import fileio, stages
+    targets = []
+    for m in plan.molecules:
+        f = out / m.name / stages.FAILURE_RECORD
+        if not f.is_file():
+            continue
+        try:
+            stage = stages.get(fileio.read_json(f)["stage"])
+        except (KeyError, ValueError, OSError):
+            continue
+        if stage.per_molecule and stage.enabled(settings):
+            targets.append(f"{m.name}/{stage.paths()[0][0]}")
+    return targets
 
 
 def _prepare(config_path):
@@ -108,15 +120,8 @@ def run_workflow(config_path, out, cores=2, until=None, extra=()) -> int:
     cfg, plan = _prepare(config_path)
     stages = available_stages()
     if until is not None and until not in stages:
-        raise ChairqmError(f"--until {until}: this version provides the stages {', '.join(stages)}"
-                           + ("" if full_run_available() else " (the full run is not built yet)"))
-    if until is None:
-        if not full_run_available():
-            until = stages[-1]
-            print(f"chairqm: the stages after '{until}' are not built yet; running up to '{until}'", file=sys.stderr)
-        target = "all" if until is None else f"until_{until}"
-    else:
-        target = f"until_{until}"
+        raise ChairqmError(f"--until {until}: the stages are {', '.join(stages)}")
+    target = "all" if until is None else f"until_{until}"
     out = Path(out).resolve()
     out.mkdir(parents=True, exist_ok=True)
     for m in plan.molecules:
@@ -131,10 +136,13 @@ def run_workflow(config_path, out, cores=2, until=None, extra=()) -> int:
     if not dry:
         fileio.write_json(out / ".chairqm" / "run-start.json",
                           {"epoch": time.time(), "iso": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "target": target})
+    retry = failed_stage_targets(out, plan, cfg["settings"])
+    if retry and not dry:
+        print(f"chairqm: retrying what failed before: {', '.join(retry)}", file=sys.stderr)
     cmd = [sys.executable, "-m", "snakemake", target, "--snakefile", str(snakefile()), "--directory", str(out),
            "--config", f"chairqm_config={Path(config_path).resolve()}", "--cores", str(cores),
            "--rerun-incomplete", "--keep-going", "--nolock", *(["--printshellcmds"] if os.environ.get("CHAIRQM_VERBOSE") else ["--quiet", "rules"]),
-           *extra]
+           *(["--forcerun", *retry] if retry else []), *extra]
     env = dict(os.environ)
     env.setdefault("OMP_NUM_THREADS", "1")
     env.setdefault("OPENBLAS_NUM_THREADS", "1")
@@ -308,7 +316,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("config")
     r.add_argument("--out", help="output folder (default results/<config name>)")
     r.add_argument("--cores", type=int, default=2)
-    r.add_argument("--until", help="stop after this stage: " + ", ".join(STAGE_ORDER))
+    r.add_argument("--until", help="stop after this stage: " + ", ".join(available_stages()))
     a = sub.add_parser("avalue", help="compute the A-value of a group, e.g. chairqm avalue \"[*]C1CC1\"")
     a.add_argument("fragment", help="the group as SMILES with one attachment point [*]")
     a.add_argument("--out", help="output folder (default results/avalue-<group>)")

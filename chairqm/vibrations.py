@@ -361,6 +361,7 @@ class MinimumProof:
     gradient_calls: int = 0          # Hessian gradients computed (optimiser calls are counted by the optimiser)
     engine_seconds: float = 0.0      # engine time inside the Hessians
     hessians: list = field(default_factory=list)   # HessianRun.to_record() of every round
+    hessian: np.ndarray | None = None              # (3N, 3N) eV/Å² at `atoms` (the final round's), None if none
 
     @property
     def lowest_frequency_cm1(self) -> float:
@@ -423,11 +424,11 @@ def prove_minimum(atoms: Atoms, calc_factory, reoptimize, cache_dir,
         proof.gradient_calls += run.gradient_calls
         proof.engine_seconds += run.engine_seconds
         proof.hessians.append(run.to_record())
-        return frequencies(run.hessian, geom)
+        return (*frequencies(run.hessian, geom), run.hessian)
 
     try:
         energy = _single_point_hartree(current, calc_factory()) if energy_hartree is None else float(energy_hartree)
-        freqs, modes = analyse(current, 0)
+        freqs, modes, hess = analyse(current, 0)
     except ChairqmError:
         raise
     except Exception as exc:  # engine failure: report it for this conformer, do not stop the others
@@ -488,7 +489,7 @@ def prove_minimum(atoms: Atoms, calc_factory, reoptimize, cache_dir,
         new.set_initial_charges(current.get_initial_charges())
         new.set_initial_magnetic_moments(current.get_initial_magnetic_moments())
         try:
-            new_freqs, new_modes = analyse(new, rnd)
+            new_freqs, new_modes, new_hess = analyse(new, rnd)
         except ChairqmError:
             raise
         except Exception as exc:
@@ -497,11 +498,12 @@ def prove_minimum(atoms: Atoms, calc_factory, reoptimize, cache_dir,
                            f"{exc}; the record keeps the previous geometry")
             proof.status = "failed"
             break
-        current, energy, freqs, modes = new, e_new, new_freqs, new_modes
+        current, energy, freqs, modes, hess = new, e_new, new_freqs, new_modes, new_hess
 
     proof.atoms = current
     proof.freqs = freqs
     proof.modes = modes
+    proof.hessian = hess
     proof.rounds = rnd
     proof.energy_hartree = float(energy)
     proof.n_imaginary = int(np.sum(freqs < -threshold))

@@ -252,6 +252,7 @@ def test_an_accepted_name_is_one_safe_folder_and_a_valid_stage_argument(name):
     """Whatever name the schema accepts becomes exactly one folder inside the output folder, and the
     stage command line the rules build (`--molecule NAME`) reads it back unchanged."""
     from chairqm import stages
+    from chairqm.stages import __main__ as runner
     try:
         cq_config.validate({"molecules": [{"name": name, "smiles": "CC1CCCCC1"}]})
     except ChairqmError:
@@ -267,8 +268,8 @@ def test_an_accepted_name_is_one_safe_folder_and_a_valid_stage_argument(name):
     def fake_stage(cfg, plan, molecule, threads=1):
         seen["molecule"] = molecule
 
-    with mock.patch.object(stages, "_context", return_value=({}, None)), \
-            mock.patch.dict(stages.STAGES, {"intake": fake_stage}), \
+    with mock.patch.object(runner, "context", return_value=({}, None)), \
+            mock.patch.object(stages.get("intake").module, "run", fake_stage), \
             contextlib.redirect_stderr(io.StringIO()) as err:
         try:
             code = stages.main(["intake", "--config", "c.yaml", "--molecule", name])

@@ -517,8 +517,8 @@ def test_per_conformer_cache_keys_follow_the_version(base, reference, tmp_path, 
     with another version none is."""
     import chairqm
     from chairqm import config as cq_config
-    from chairqm import stages
     from chairqm.plan import make_plan
+    from chairqm.stages import minima
     root, cfg_path = base
     work = tmp_path / "out"
     shutil.copytree(reference, work, symlinks=True, copy_function=shutil.copy2)
@@ -527,11 +527,11 @@ def test_per_conformer_cache_keys_follow_the_version(base, reference, tmp_path, 
     plan = make_plan(cfg)
     before = {p.name: p.stat().st_mtime_ns for p in (work / "mch" / "work" / "opt").glob("*.json")}
     assert len(before) == 2
-    stages.stage_minima(cfg, plan, "mch", threads=1)
+    minima.run(cfg, plan, "mch", threads=1)
     same = {p.name: p.stat().st_mtime_ns for p in (work / "mch" / "work" / "opt").glob("*.json")}
     assert same == before, "records were rewritten although nothing changed"
     monkeypatch.setattr(chairqm, "__version__", "99.0.0+reliability-test")
-    stages.stage_minima(cfg, plan, "mch", threads=1)
+    minima.run(cfg, plan, "mch", threads=1)
     for p in (work / "mch" / "work" / "opt").glob("*.json"):
         assert p.stat().st_mtime_ns != before[p.name], f"{p.name} reused across versions"
         assert json.loads(p.read_text())["key"] != json.loads((reference / "mch" / "work" / "opt" / p.name)

@@ -2,27 +2,19 @@
 # A molecule waits for the reference rings of its untabulated groups (QM-derived A-values).
 
 
-def reference_inputs(wc):
-    return [f"{ref}/ensemble.json" for ref in PLAN.references_for(wc.mol).values()]
-
-
-def refine_inputs(wc):
-    return [f"{wc.mol}/refine.csv"] if SETTINGS.get("refine") is not None else []
-
-
 rule ensemble:
     input:
-        "{mol}/thermo.csv",
-        reference_inputs,
-        refine_inputs,
+        "{mol}/molecule.json",
+        "{mol}/thermo.json",
+        "{mol}/thermo",
+        reference_ensembles,
+        refine_outputs,
     output:
-        "{mol}/ensemble.json",
-        "{mol}/families.csv",
-        "{mol}/conformers.csv",
-        "{mol}/conformers.sdf",
+        **stage_outputs("ensemble"),
     params:
-        fp=fingerprint("temperatures_k", "analysis", "unique", "refine"),
+        config=CONFIG_PATH,
+        fp=fingerprint("ensemble"),
     log:
         "{mol}/logs/ensemble.log",
     shell:
-        "{STAGE} ensemble --config {CONFIG_PATH:q} --molecule={wildcards.mol:q} 2> {log:q}"
+        stage_command("ensemble")

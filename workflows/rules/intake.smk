@@ -1,13 +1,13 @@
-# intake: configuration entry -> perceived ring and substituents
+# intake: configuration entry -> perceived molecule and substituents
 
 
 rule intake:
     output:
-        table="{mol}/substituents.csv",
-        record="{mol}/molecule.json",
+        **stage_outputs("intake"),
     params:
-        fp=lambda wc: fingerprint("enumerate_stereo", entry=PLAN.get(wc.mol).mapped_smiles),
+        config=CONFIG_PATH,
+        fp=lambda wc: fingerprint("intake", entry=PLAN.get(wc.mol).mapped_smiles),
     log:
         "{mol}/logs/intake.log",
     shell:
-        "{STAGE} intake --config {CONFIG_PATH:q} --molecule={wildcards.mol:q} 2> {log:q}"
+        stage_command("intake")

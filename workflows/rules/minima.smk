@@ -4,14 +4,16 @@
 
 rule minima:
     input:
+        "{mol}/molecule.json",
         "{mol}/seeds.csv",
+        "{mol}/seeds",
     output:
-        "{mol}/minima.csv",
-        "{mol}/minima.json",
+        **stage_outputs("minima"),
     params:
-        fp=fingerprint("engine", "method", "solvent", "accuracy", "electronic_temperature_k", "optimize", "unique"),
+        config=CONFIG_PATH,
+        fp=fingerprint("minima"),
     threads: 2
     log:
         "{mol}/logs/minima.log",
     shell:
-        "{STAGE} minima --config {CONFIG_PATH:q} --molecule={wildcards.mol:q} --threads {threads} 2> {log:q}"
+        stage_command("minima", threads=True)

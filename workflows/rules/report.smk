@@ -3,15 +3,13 @@
 
 rule report:
     input:
-        expand("{mol}/ensemble.json", mol=MOLECULES),
+        report_inputs,
     output:
-        "summary.csv",
-        "provenance.json",
-        "conformers.db",
-        "report.html",
+        **stage_outputs("report"),
     params:
-        fp=fingerprint("temperatures_k", "analysis", project=CFG.get("project", "")),
+        config=CONFIG_PATH,
+        fp=fingerprint("report", project=CFG.get("project", ""), calibration=cq_calibration.file_fingerprint()),
     log:
         "logs/report.log",
     shell:
-        "{STAGE} report --config {CONFIG_PATH:q} 2> {log:q}"
+        stage_command("report", molecule=False)

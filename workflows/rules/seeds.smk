@@ -5,10 +5,11 @@ rule seeds:
     input:
         "{mol}/molecule.json",
     output:
-        "{mol}/seeds.csv",
+        **stage_outputs("seeds"),
     params:
+        config=CONFIG_PATH,
         fp=fingerprint("seeds"),
     log:
         "{mol}/logs/seeds.log",
     shell:
-        "{STAGE} seeds --config {CONFIG_PATH:q} --molecule={wildcards.mol:q} 2> {log:q}"
+        stage_command("seeds")

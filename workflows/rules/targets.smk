@@ -1,33 +1,17 @@
-# named end points for `chairqm run --until STAGE`; `all` is the full run
+# Named end points: `all` (the full run) and until_STAGE for `chairqm run --until STAGE`, one per stage
+# the registry offers (chairqm.stages.until_names()).
 
 
 rule all:
     input:
-        "summary.csv",
-        "report.html",
+        **stage_outputs("report"),
     default_target: True
 
 
-rule until_intake:
-    input:
-        expand("{mol}/substituents.csv", mol=MOLECULES),
+for _stage in cq_stages.until_names():
 
-
-rule until_seeds:
-    input:
-        expand("{mol}/seeds.csv", mol=MOLECULES),
-
-
-rule until_minima:
-    input:
-        expand("{mol}/minima.csv", mol=MOLECULES),
-
-
-rule until_thermo:
-    input:
-        expand("{mol}/thermo.csv", mol=MOLECULES),
-
-
-rule until_refine:
-    input:
-        expand("{mol}/refine.csv", mol=MOLECULES) if SETTINGS.get("refine") is not None else [],
+    rule:
+        name:
+            f"until_{_stage}"
+        input:
+            [stage_files(_stage, m)[0] for m in MOLECULES] if enabled(_stage) else [],

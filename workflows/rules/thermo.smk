@@ -1,18 +1,19 @@
-# thermo: finite-difference Hessian, proof of minimum and G(T) of every unique minimum.
+# thermo: Hessian, proof of minimum and the final conformer list (re-merged after mode following).
 # Hessian displacements are cached per conformer in work/freq/ and reused after an interruption.
 
 
 rule thermo:
     input:
+        "{mol}/molecule.json",
         "{mol}/minima.json",
+        "{mol}/minima",
     output:
-        "{mol}/thermo.csv",
-        "{mol}/thermo.json",
+        **stage_outputs("thermo"),
     params:
-        fp=fingerprint("engine", "method", "solvent", "accuracy", "electronic_temperature_k", "optimize",
-                       "thermo", "temperatures_k"),
+        config=CONFIG_PATH,
+        fp=fingerprint("thermo"),
     threads: 2
     log:
         "{mol}/logs/thermo.log",
     shell:
-        "{STAGE} thermo --config {CONFIG_PATH:q} --molecule={wildcards.mol:q} --threads {threads} 2> {log:q}"
+        stage_command("thermo", threads=True)

@@ -1,0 +1,262 @@
+"""Ensemble stage: thermo.json + thermo/*.vib.json (+ refine.csv) -> ensemble.json, families.csv,
+conformers.csv and conformers.sdf.
+
+Free energies at every requested temperature (and along the population curve) are computed here from
+each conformer's published Hessian; with refinement, the composite free energies of chairqm.refine.
+Then populations, families, the chair gap and A-value, the additive estimate and the disagreement flag.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+from .. import fileio
+from . import tables
+from .__main__ import upstream_failure
+from .records import load_molecule, read_xyz
+from .thermo import free_energy_terms, thermo_settings, vibrations_of
+
+CURVE_T = [float(t) for t in range(150, 451, 10)]      # K: populations-against-temperature curve
+
+
+def _clean(x):
+    """JSON-friendly scalar: NaN -> None, numpy -> Python."""
+    if x is None:
+        return None
+    try:
+        if isinstance(x, str):
+            return x
+        f = float(x)
+        return None if math.isnan(f) else f
+    except (TypeError, ValueError):
+        return x
+
+
+class Conformer(dict):
+    """One entry of the thermo stage's final list, with its GFN2-xTB free energy G(T) (hartree) computed on
+    demand from its VibrationsData file, and (after :func:`apply_refinement`) its refined one."""
+
+    def attach(self, folder: Path, th: dict, multiplicity: int):
+        self["atoms"] = read_xyz(folder / self["geometry"])
+        self._vib = folder / self["vibrations"] if self.get("vibrations") else None
+        self._th, self._mult, self._g = th, multiplicity, {}
+        return self
+
+    def g(self, t, refined=True):
+        """G(T) in hartree: GFN2-xTB, or the refined composite value when refinement applies; None when the
+        conformer has no Hessian."""
+        if self._vib is None:
+            return None
+        t = float(t)
+        if t not in self._g:
+            if not hasattr(self, "_freqs"):
+                self._atoms_vib, self._freqs = vibrations_of(self._vib)
+            term = free_energy_terms(self._atoms_vib, self._freqs, self["symmetry_number"], self._mult, self._th, t)
+            self._g[t] = self["energy_hartree"] + term.g_corr
+        g = self._g[t]
+        if refined and "refined_g" in self:
+            return self["refined_g"](g)
+        return g
+
+
+def apply_refinement(folder: Path, confs) -> bool:
+    """Put refined free energies on the conformers with chairqm.refine.composite: G = E(DFT) + [G − E](GFN2-xTB)
+    (+ the GFN2-xTB solvation with 'gfn2-delta'). A conformer that was not refined (or whose SCF failed) gets
+    its GFN2-xTB G shifted by the mean E(DFT) + ΔG_solv − E(GFN2-xTB) of the refined ones. Returns False when
+    there is nothing to apply."""
+    import numpy as np
+    import pandas as pd
+
+    from .. import refine as cq_refine
+    path = folder / "refine.csv"
+    if not path.is_file():
+        return False
+    df = pd.read_csv(path, keep_default_na=False)
+    ok = {r.conformer: r for r in df[df["status"] == "ok"].itertuples()}
+    if not ok:
+        return False
+    mean = float(np.mean([float(r.energy_refined_hartree) + float(r.solvation_hartree or 0.0) - float(r.energy_hartree)
+                          for r in ok.values()]))
+    for c in confs:
+        r = ok.get(c["conformer"])
+        c["refined"] = r is not None
+        c["energy_refined_hartree"] = float(r.energy_refined_hartree) if r is not None else None
+        if r is not None:
+            c["refined_g"] = (lambda g, r=r: cq_refine.composite(float(r.energy_refined_hartree), float(r.energy_hartree),
+                                                                   g, float(r.solvation_hartree or 0.0)))
+        else:
+            c["refined_g"] = (lambda g: g + mean)
+    return True
+
+
+def _qm_a_values(plan, name, temperature):
+    out = {}
+    for frag, ref in plan.references_for(name).items():
+        path = Path(ref) / "ensemble.json"
+        if not path.is_file():
+            continue
+        for row in fileio.read_json(path).get("temperatures", []):
+            if abs(row["temperature_k"] - float(temperature)) < 1e-6 and row.get("a_value_kcal") is not None:
+                out[frag] = row["a_value_kcal"]
+    return out
+
+
+def _analyse_temperature(p, plan, name, settings, usable_df, t):
+    from .. import additivity as cq_add
+    from .. import ensemble as cq_ens
+    an = settings["analysis"]
+    fam = cq_ens.families(usable_df, t)
+    ids = cq_ens.chair_ids(p.ring, p.ring_elements, p.substituents)
+    summ = cq_ens.chair_summary(fam, ids)
+    qm = _qm_a_values(plan, name, t)
+    own = (len(p.substituents) == 1 and p.ring_elements == ["C"] * 6 and summ.get("a_value_kcal") is not None
+           and cq_add.needs_reference(p.substituents))
+    if own:
+        # this ring defines its group's QM-derived A-value: the additive estimate is that value itself
+        qm = {**qm, p.substituents[0].fragment: summ["a_value_kcal"]}
+    reasons = cq_add.outside_reasons(p.ring, p.ring_elements, p.substituents, qm)
+    if reasons:
+        est = cq_add.AdditiveEstimate(None, None, None, None, "outside-model", "; ".join(reasons))
+    elif summ.get("chair_dg_kcal") is None:
+        est = None
+    else:
+        est = cq_add.estimate_for(p, summ["preferred_chair_orientation"], summ["second_chair_orientation"], qm)
+    if est is None:
+        flag, why = True, "the ring-flip partner chair was not found among the minima, so no chair gap can be compared"
+    else:
+        flag, why = cq_add.disagreement(summ.get("preferred_chair_axial"), summ.get("chair_dg_kcal"), est,
+                                        summ.get("twist_boat_population", 0.0), an["flag_threshold_kcal"],
+                                        an["non_chair_threshold"])
+    if own and not reasons:
+        flag, why = False, (f"defines the QM-derived A-value of {p.substituents[0].fragment} "
+                            "(used for the additive estimate of the other molecules)")
+    additive = None
+    if est is not None:
+        # every gap on the computed chairs' axis: G(second computed chair) − G(preferred computed chair)
+        flip = bool(est.dg_kcal) and est.preferred_orientation != summ.get("preferred_chair_orientation")
+        sign = -1.0 if flip else 1.0
+        additive = {"dg_kcal": _clean(None if est.dg_kcal is None else sign * est.dg_kcal),
+                    "source": est.source, "reason": est.reason,
+                    "terms": [[str(a), _clean(b)] for a, b in est.terms],
+                    "tabulated_dg_kcal": _clean(None if est.tabulated_dg_kcal is None else sign * est.tabulated_dg_kcal),
+                    "qm_dg_kcal": _clean(None if est.qm_dg_kcal is None else sign * est.qm_dg_kcal),
+                    "preferred_orientation": est.preferred_orientation}
+    row = {"temperature_k": float(t), "preferred_family": summ.get("preferred_family"),
+           "chair_dg_kcal": _clean(summ.get("chair_dg_kcal")),
+           "a_value_kcal": _clean(summ.get("a_value_kcal")) if len(p.substituents) == 1 else None,
+           "twist_boat_population": _clean(summ.get("twist_boat_population")),
+           "preferred_chair": summ.get("preferred_chair"), "second_chair": summ.get("second_chair"),
+           "additive": additive, "flag": bool(flag), "flag_reason": why, "note": summ.get("note", "")}
+    return fam, row
+
+
+def _frame(confs, t, refined=True):
+    import pandas as pd
+    return pd.DataFrame([{"conformer": c["conformer"], "ring_form": c["ring_form"], "orientation": c["orientation"],
+                          "g_hartree": c.g(t, refined), "degeneracy": c["degeneracy"]} for c in confs])
+
+
+def run(cfg, plan, name, threads=1):
+    import pandas as pd
+
+    from .. import ensemble as cq_ens
+    settings = cfg["settings"]
+    p = load_molecule(name)
+    folder = Path(name)
+    temps = [float(t) for t in settings["temperatures_k"]]
+    th = thermo_settings(settings)
+    confs = [Conformer(c).attach(folder, th, p.multiplicity)
+             for c in fileio.read_json(folder / "thermo.json")["conformers"]]
+    requested = settings.get("refine") is not None
+    refined = requested and apply_refinement(folder, confs)
+    usable = [c for c in confs if c["usable"]]
+    out = {"molecule": name, "smiles": p.smiles, "reference": p.reference, "status": "ok", "reason": "",
+           "refined": bool(refined), "temperatures": [], "curve": {"temperature_k": CURVE_T, "families": {}}}
+    failed_before = upstream_failure(name)
+    if failed_before or not usable:
+        out["status"] = "failed"
+        out["reason"] = failed_before or ("no conformer survived optimisation, verification and the frequency check"
+                                          if confs else "no conformer could be built or optimised (see seeds.csv and minima.csv)")
+    conf_rows, fam_frames = [], []
+    for t in temps:
+        pops = {}
+        if usable:
+            df = _frame(usable, t)
+            cp = cq_ens.conformer_populations(df, t)
+            pops = {r.conformer: (r.g_rel_kcal, r.population) for r in cp.itertuples()}
+            fam, row = _analyse_temperature(p, plan, name, settings, df, t)
+            if refined:
+                # the GFN2-xTB values beside the refined ones
+                fam_u, row_u = _analyse_temperature(p, plan, name, settings, _frame(usable, t, refined=False), t)
+                fam = fam.merge(fam_u[["ring_form", "orientation", "g_rel_kcal", "population"]].rename(
+                    columns={"g_rel_kcal": "g_rel_unrefined_kcal", "population": "population_unrefined"}),
+                    on=["ring_form", "orientation"], how="left")
+                row["unrefined"] = {k: row_u[k] for k in ("preferred_family", "chair_dg_kcal", "a_value_kcal",
+                                                          "twist_boat_population", "flag", "flag_reason")}
+            fam_frames.append(fam)
+            out["temperatures"].append(row)
+        for c in confs:
+            g_rel, pop = pops.get(c["conformer"], (None, 0.0 if c["usable"] is False else None))
+            r = {"conformer": c["conformer"], "seed": c["seed"], "temperature_k": t,
+                 "ring_form": c["ring_form"], "q": c["q"], "theta": c["theta"], "phi": c["phi"],
+                 "orientation": c["orientation"], "energy_hartree": c["energy_hartree"],
+                 "g_hartree": c.g(t, refined=False), "g_rel_kcal": g_rel, "population": pop,
+                 "n_imaginary": c["n_imaginary"], "status": c["status"],
+                 "degeneracy": c["degeneracy"], "symmetry_number": c.get("symmetry_number"),
+                 "reason": c["reason"]}
+            if requested:
+                r["energy_refined_hartree"] = c.get("energy_refined_hartree")
+                r["g_refined_hartree"] = c.g(t) if "refined_g" in c else None
+                r["refined_single_point"] = bool(c.get("refined"))
+            conf_rows.append(r)
+    if usable:
+        for t in CURVE_T:
+            fam = cq_ens.families(_frame(usable, t), t)
+            for r in fam.itertuples():
+                key = cq_ens.family_key(r.ring_form, r.orientation)
+                out["curve"]["families"].setdefault(key, [0.0] * len(CURVE_T))
+                out["curve"]["families"][key][CURVE_T.index(t)] = float(r.population)
+    fam_cols = tables.families(settings)
+    fams = pd.concat(fam_frames, ignore_index=True) if fam_frames else tables.frame([], fam_cols)
+    fileio.write_csv(folder / "families.csv", fams.reindex(columns=fam_cols))
+    conf_df = tables.frame(conf_rows, tables.conformers(settings))
+    fileio.write_csv(folder / "conformers.csv", conf_df)
+    write_sdf(folder / "conformers.sdf", p, confs, temps[0], conf_df)
+    fileio.write_json(folder / "ensemble.json", out)
+
+
+def write_sdf(path, p, confs, t0, conf_df):
+    """Every minimum (final geometry) with its properties, lowest free energy first."""
+    import io
+
+    from rdkit import Chem
+
+    from ..chem import with_positions
+    buf = io.StringIO()
+    w = Chem.SDWriter(buf)
+    w.SetKekulize(False)
+    at_t0 = conf_df[conf_df["temperature_k"] == t0].set_index("conformer")
+    for c in confs:
+        m = with_positions(p.mol, c["atoms"].positions)
+        m.SetProp("_Name", f"{p.name} {c['conformer']}")
+        row = at_t0.loc[c["conformer"]]
+        props = {"conformer": c["conformer"], "seed": c["seed"], "ring_form": c["ring_form"],
+                 "orientation": c["orientation"], "status": c["status"], "degeneracy": c["degeneracy"],
+                 "energy_hartree": c["energy_hartree"], "temperature_k": t0,
+                 "g_hartree": row["g_hartree"], "g_rel_kcal": row["g_rel_kcal"], "population": row["population"],
+                 "n_imaginary": c["n_imaginary"], "q": c["q"], "theta": c["theta"], "phi": c["phi"]}
+        for k, v in props.items():
+            m.SetProp(k, "" if v is None or (isinstance(v, float) and v != v) else str(v))
+        w.write(m)
+    w.close()
+    fileio.write_text(path, buf.getvalue())
+
+
+def write_empty(name, settings, message):
+    folder = Path(name)
+    fileio.write_csv(folder / "families.csv", tables.frame([], tables.families(settings)))
+    fileio.write_csv(folder / "conformers.csv", tables.frame([], tables.conformers(settings)))
+    fileio.write_text(folder / "conformers.sdf", "")
+    fileio.write_json(folder / "ensemble.json", {"molecule": name, "status": "failed",
+                                                 "reason": f"ensemble stage: {message}", "temperatures": []})

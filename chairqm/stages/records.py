@@ -1,0 +1,125 @@
+"""Per-conformer records: reuse by key, worker pools, engine factories and XYZ files for the stages.
+
+A record is a JSON file a worker writes last (after its geometry), so its presence marks a finished
+conformer. It carries the key of everything it was made from; a rerun reuses a record whose key matches
+and whose status says it finished, and recomputes the rest.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+
+from .. import fileio
+from .. import provenance
+from ..molecule import Perceived
+
+
+def key_of(*parts) -> str:
+    """A short, stable hash of JSON-able parts: the cache key of a per-conformer record."""
+    text = json.dumps(parts, sort_keys=True, default=str)
+    return hashlib.sha256(text.encode()).hexdigest()[:20]
+
+
+def record_key(stage: str, settings: dict, p: Perceived, *inputs) -> str:
+    """The key of one per-conformer record of `stage`: its inputs (e.g. the geometry's text), the settings
+    provenance.RESULT_SETTINGS lists for the stage's records, the molecule's charge and spin, the version."""
+    from .. import __version__
+    return key_of(*inputs, provenance.record_settings(stage, settings), p.charge, p.multiplicity, __version__)
+
+
+def reusable(path: Path, key: str, needs=()) -> dict | None:
+    """The record at `path` if it was made with `key`, did not fail (a failed record is always retried)
+    and the files in `needs` exist; otherwise None (the conformer is computed again)."""
+    path = Path(path)
+    if not path.is_file():
+        return None
+    try:
+        old = fileio.read_json(path)
+    except (OSError, ValueError):
+        return None                    # damaged record: recompute
+    if old.get("key") != key or old.get("status") == "failed":
+        return None
+    if not all(Path(f).is_file() for f in needs):
+        return None
+    return old
+
+
+def load_molecule(name: str) -> Perceived:
+    """The intake stage's record of molecule `name` (its molecule.json in the run folder)."""
+    return Perceived.from_json(Path(name, "molecule.json").read_text())
+
+
+def engine_settings(settings: dict, p: Perceived) -> dict:
+    """The engine's settings for molecule `p`, in the shape chairqm.engine.make_calculator takes."""
+    s = settings
+    return {"engine": s["engine"], "method": s["method"], "solvent": s.get("solvent"),
+            "accuracy": s["accuracy"], "electronic_temperature": s["electronic_temperature_k"],
+            "charge": p.charge, "multiplicity": p.multiplicity}
+
+
+class CalcFactory:
+    """Picklable calculator factory: factory(electronic_temperature=None) -> a fresh engine calculator."""
+
+    def __init__(self, es: dict):
+        self.es = dict(es)
+
+    def __call__(self, electronic_temperature=None):
+        from .. import engine
+        es = self.es
+        t = es["electronic_temperature"] if electronic_temperature is None else electronic_temperature
+        return engine.make_calculator(es["engine"], es["method"], es["charge"], es["multiplicity"],
+                                      es["solvent"], es["accuracy"], t)
+
+
+def pool_map(fn, items, threads):
+    """Run fn over items, in `threads` worker processes when more than one (spawned, so no engine state
+    is inherited); results in input order."""
+    items = list(items)
+    if threads <= 1 or len(items) <= 1:
+        return [fn(x) for x in items]
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+    with ProcessPoolExecutor(max_workers=min(threads, len(items)), mp_context=mp.get_context("spawn")) as ex:
+        return list(ex.map(fn, items))
+
+
+def read_xyz(path):
+    from ase.io import read
+    return read(str(path), format="extxyz")
+
+
+def write_xyz(path, atoms, comment_info=None):
+    import io
+
+    from ase.io import write
+    a = atoms.copy()
+    a.calc = None
+    a.info = dict(comment_info or {})
+    buf = io.StringIO()
+    write(buf, a, format="extxyz")
+    fileio.write_text(path, buf.getvalue())
+
+
+def write_vibrations(path, atoms, hessian) -> None:
+    """Store a conformer's Hessian (eV/Å², 3N×3N) with its geometry as an ASE VibrationsData JSON file,
+    atomically: `ase.vibrations.VibrationsData.read(path)` opens it (modes, frequencies, thermochemistry)."""
+    import io
+
+    import numpy as np
+    from ase import Atoms
+    from ase.io.jsonio import write_json
+    from ase.vibrations import VibrationsData
+    a = Atoms(atoms.numbers, positions=np.array(atoms.positions, dtype=float))
+    data = VibrationsData.from_2d(a, np.asarray(hessian, dtype=float))
+    buf = io.StringIO()
+    write_json(buf, data)
+    fileio.write_text(path, buf.getvalue())
+
+
+def read_vibrations(path):
+    """(atoms, Hessian 3N×3N in eV/Å²) of a VibrationsData file written by :func:`write_vibrations`."""
+    from ase.vibrations import VibrationsData
+    data = VibrationsData.read(str(path))
+    return data.get_atoms(), data.get_hessian_2d()

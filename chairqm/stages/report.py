@@ -1,0 +1,146 @@
+"""Report stage: every molecule's ensemble.json, conformers.csv and thermo/ -> summary.csv,
+provenance.json, conformers.db (ASE SQLite) and report.html. The summary rows are built once, in memory,
+and handed to the page."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+from .. import fileio
+from . import tables
+from .records import read_xyz
+
+
+def calibrate_rows(rows, settings) -> str:
+    """Calibrated value and 95 % prediction interval for each row's A-value (or, for rings with several
+    groups, its chair gap), from the packaged calibration whose settings match this run, and only at the
+    calibration's own temperature (chairqm.calibration.applies_at); returns the note for provenance."""
+    from .. import calibration as cq_cal
+    cal = cq_cal.load_matching(settings)
+    if cal is None:
+        return ("no calibration matches these settings (method, engine, solvent, thermochemistry"
+                + (", DFT refinement level" if settings.get("refine") is not None else "")
+                + "): values are uncalibrated")
+    skipped = set()
+    for r in rows:
+        if r.get("status") != "ok":
+            continue
+        if not cq_cal.applies_at(cal, r["temperature_k"]):
+            skipped.add(float(r["temperature_k"]))
+            continue
+        for quantity in ("a_value_kcal", "chair_dg_kcal"):
+            v = r.get(quantity)
+            if v is not None and v == v:
+                c, lo, hi = cq_cal.apply(cal, float(v))
+                r.update({"calibrated_kcal": c, "interval_low_kcal": lo, "interval_high_kcal": hi,
+                          "calibrated_quantity": quantity})
+                break
+    note = (f"calibrated against {cal.n} experimental A-values (residual SD {cal.residual_sd_kcal:.2f} kcal/mol); "
+            "chair gaps of rings with several groups use the same line, an extrapolation")
+    if skipped:
+        note += (f"; applied only at {float(cal.temperature_k):g} K, its own temperature: values at "
+                 f"{', '.join(f'{t:g}' for t in sorted(skipped))} K are uncalibrated")
+    return note
+
+
+def summary_rows(cfg, plan) -> list[dict]:
+    import pandas as pd
+    rows = []
+    for m in plan.molecules:
+        ens = fileio.read_json(Path(m.name) / "ensemble.json")
+        cdf = pd.read_csv(Path(m.name) / "conformers.csv")
+        n = int(cdf.loc[cdf["status"] == "ok", "conformer"].nunique()) if len(cdf) else 0
+        if ens["status"] != "ok":
+            for t in cfg["settings"]["temperatures_k"]:
+                rows.append({"molecule": m.name, "temperature_k": float(t), "status": "failed",
+                             "reason": ens["reason"], "n_conformers": n, "flag": True,
+                             "flag_reason": "no result"})
+            continue
+        for r in ens["temperatures"]:
+            add = r.get("additive") or {}
+            rows.append({"molecule": m.name, "temperature_k": r["temperature_k"], "status": "ok", "reason": "",
+                         "n_conformers": n, "preferred_family": r["preferred_family"],
+                         "chair_dg_kcal": r["chair_dg_kcal"], "a_value_kcal": r["a_value_kcal"],
+                         "twist_boat_population": r["twist_boat_population"],
+                         "additive_dg_kcal": add.get("dg_kcal"), "additive_source": add.get("source", ""),
+                         "flag": bool(r["flag"]), "flag_reason": r["flag_reason"],
+                         "refined": bool(ens.get("refined")),
+                         "chair_dg_unrefined_kcal": (r.get("unrefined") or {}).get("chair_dg_kcal"),
+                         "a_value_unrefined_kcal": (r.get("unrefined") or {}).get("a_value_kcal")})
+    return rows
+
+
+def provenance(cfg, plan, calibration_note) -> dict:
+    import time
+
+    from .. import __version__
+    from .. import engine as cq_engine
+    engine_s, calls = 0.0, 0
+    for m in plan.molecules:
+        for stage in ("minima", "thermo"):
+            d = fileio.read_json(Path(m.name) / f"{stage}.json")
+            engine_s += d.get("engine_seconds", 0.0)
+            calls += d.get("gradient_calls", 0)
+    start_file = Path(".chairqm", "run-start.json")
+    started = fileio.read_json(start_file) if start_file.is_file() else {}
+    now = time.time()
+    return {"chairqm_version": __version__, "engines": cq_engine.engine_versions(),
+            "project": cfg.get("project", ""), "settings": cfg["settings"],
+            "config_file": str(cfg.get("_config_path", "")),
+            "input_hashes": {m.name: m.input_hash for m in plan.molecules},
+            "molecules": [m.name for m in plan.molecules],
+            "started": started.get("iso"), "finished": time.strftime("%Y-%m-%dT%H:%M:%S%z", time.localtime(now)),
+            "wall_seconds": round(now - started["epoch"], 2) if "epoch" in started else None,
+            "engine_seconds": round(engine_s, 2), "gradient_calls": calls,
+            "engine_seconds_note": "engine time summed over the stages that computed in this folder, including reused records",
+            "n_cpus": os.cpu_count(), "calibration": calibration_note}
+
+
+def write_db(plan, path="conformers.db"):
+    """One ASE SQLite database of every conformer with its key-value pairs (`ase db conformers.db`)."""
+    import pandas as pd
+    from ase.db import connect
+    tmp = Path(f".{Path(path).name}.part")
+    if tmp.exists():
+        tmp.unlink()
+    db = connect(str(tmp), type="db", append=False)
+    for m in plan.molecules:
+        cdf = pd.read_csv(Path(m.name) / "conformers.csv", keep_default_na=False)
+        t0 = cdf["temperature_k"].min() if len(cdf) else None
+        for r in cdf[cdf["temperature_k"] == t0].itertuples():
+            xyz = Path(m.name) / "thermo" / f"{r.conformer}.xyz"
+            if not xyz.is_file():
+                continue
+            atoms = read_xyz(xyz)
+            atoms.info = {}
+            kv = {"molecule": m.name, "conformer": r.conformer, "seed": r.seed, "ring_form": r.ring_form,
+                  "orientation": r.orientation or "none", "status": r.status, "temperature_k": float(r.temperature_k)}
+            for k in ("energy_hartree", "g_hartree", "g_rel_kcal", "population", "q", "theta", "phi"):
+                v = getattr(r, k)
+                if v != "" and v is not None:
+                    kv[k] = float(v)
+            kv["n_imaginary"] = int(r.n_imaginary) if r.n_imaginary != "" else -1
+            db.write(atoms, **kv)
+    del db
+    if not tmp.exists():                 # nothing written: still a valid, empty database
+        connect(str(tmp), type="db", append=False).count()
+    os.replace(tmp, path)
+
+
+def run(cfg, plan, name=None, threads=1):
+    from .. import report as cq_report
+    settings = cfg["settings"]
+    rows = summary_rows(cfg, plan)
+    note = calibrate_rows(rows, settings)
+    summary = tables.frame(rows, tables.summary(settings))
+    summary["flag"] = summary["flag"].map(lambda v: "true" if bool(v) else "false")
+    fileio.write_csv("summary.csv", summary)
+    prov = provenance(cfg, plan, note)
+    fileio.write_json("provenance.json", prov)
+    write_db(plan)
+    cq_report.write_report(Path("."), prov, summary_rows=summary.to_dict("records"))
+
+
+def write_empty(name, settings, message):
+    raise RuntimeError("the report stage is not isolated: its errors stop the run")

@@ -1,0 +1,204 @@
+"""Thermo stage: minima.json + minima/*.xyz -> thermo.csv, thermo.json and thermo/CONFORMER.{xyz,vib.json}.
+
+For every minimum: the finite-difference Hessian, the proof that it is a minimum (imaginary modes followed
+and re-optimised), bonds and stereocentres checked again, the ring re-measured and the point group found.
+Conformers that mode following brought onto the same minimum are merged again, so thermo.json holds the
+FINAL conformer list the later stages read. Each conformer's Hessian is published as an ASE VibrationsData
+file (thermo/CONFORMER.vib.json), from which free energies at any temperature are computed where needed
+(:func:`free_energy_terms`). Per-conformer records (work/thermo/) and Hessian displacements (work/freq/)
+are reused on a rerun.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from .. import fileio
+from . import tables
+from .faults import eclipse_a_methyl, fault
+from .records import (CalcFactory, engine_settings, key_of, load_molecule, pool_map, read_vibrations, read_xyz,
+                      record_key, reusable, write_vibrations, write_xyz)
+
+FOLDER = "thermo"
+
+
+def thermo_settings(settings: dict) -> dict:
+    """The thermochemistry settings with the standard state the solvent implies."""
+    t = dict(settings["thermo"])
+    t["standard_state"] = "solution" if settings.get("solvent") else "gas"
+    return t
+
+
+def free_energy_terms(atoms, freqs, symmetry_number, multiplicity, th, temperature_k):
+    """chairqm.thermo.thermochemistry of one conformer at one temperature with the run's settings."""
+    from .. import thermo as cq_thermo
+    return cq_thermo.thermochemistry(freqs, atoms, float(temperature_k), symmetry_number, multiplicity=multiplicity,
+                                     model=th["model"], scale=th["frequency_scale"],
+                                     standard_state=th["standard_state"],
+                                     imaginary_threshold_cm1=th["imaginary_threshold_cm1"])
+
+
+def vibrations_of(vib_path):
+    """(atoms, frequencies in cm⁻¹) of a published VibrationsData file (chairqm.vibrations.frequencies:
+    translations and rotations projected out)."""
+    from .. import vibrations as cq_vib
+    atoms, hess = read_vibrations(vib_path)
+    freqs, _ = cq_vib.frequencies(hess, atoms)
+    return atoms, freqs
+
+
+def _freq_one(job):
+    """Hessian, proof of minimum and checks of one conformer; geometry, VibrationsData and record written
+    atomically (the record last, as the completion mark)."""
+    from .. import optimize as cq_opt
+    from .. import ring as cq_ring
+    from .. import thermo as cq_thermo
+    from .. import vibrations as cq_vib
+    from .minima import verify
+    name, cid, key, es, opt, th, xyz_in, energy, cache_dir, out_json, out_xyz, out_vib = job
+    p = load_molecule(name)
+    atoms = read_xyz(xyz_in)
+    factory = CalcFactory(es)
+    opt_calls = {"n": 0, "seconds": 0.0}
+
+    def reoptimize(a):
+        r = cq_opt.optimize(a, factory, fmax=opt["fmax_ev_per_a"], max_steps=opt["max_steps"],
+                            optimizer=opt["optimizer"], electronic_temperature=es["electronic_temperature"])
+        opt_calls["n"] += r.gradient_calls
+        opt_calls["seconds"] += r.engine_seconds
+        if r.status == "failed":
+            raise RuntimeError(r.reason)
+        return r.atoms, r.energy_hartree
+
+    max_rounds = th["max_rounds"]
+    if fault("imaginary", f"{name}/{cid}"):
+        atoms, energy, max_rounds = eclipse_a_methyl(atoms, p.mol), None, 0
+    proof = cq_vib.prove_minimum(atoms, lambda: factory(), reoptimize, cache_dir,
+                                 threshold_cm1=th["imaginary_threshold_cm1"], max_rounds=max_rounds,
+                                 step=th["step_a"], energy_hartree=energy)
+    rec = {"key": key, "conformer": cid, "proof": proof.to_record(), "thermo_settings": th,
+           "reopt_gradient_calls": opt_calls["n"],
+           "engine_seconds": proof.engine_seconds + opt_calls["seconds"],
+           "gradient_calls": proof.gradient_calls + opt_calls["n"], "vibrations": False}
+    status = {"minimum": "ok", "saddle-remains": "saddle", "failed": "failed"}[proof.status]
+    reason = "" if status == "ok" else proof.history[-1] if proof.history else proof.status
+    final = proof.atoms
+    if status != "failed":
+        ok_b, why_b, ok_s, why_s = verify(p.mol, final)
+        if not (ok_b and ok_s):
+            status, reason = "failed", "; ".join(x for x in (why_b if not ok_b else "", why_s if not ok_s else "") if x)
+        sigma, pg = cq_thermo.symmetry_number(final)
+        rec["symmetry_number"], rec["point_group"] = int(sigma), pg
+        rec["measured"] = cq_ring.measure(final.positions, p.ring, p.substituents)
+        write_vibrations(out_vib, final, proof.hessian)
+        rec["vibrations"] = True
+    rec["energy_hartree"] = proof.energy_hartree
+    rec["status"], rec["reason"] = status, reason
+    write_xyz(out_xyz, final, {"conformer": cid, "energy_hartree": proof.energy_hartree})
+    fileio.write_json(out_json, rec)
+    return rec
+
+
+def _final_list(p, minima, recs, work, settings):
+    """The conformers after the frequency check, re-measured on their final geometry and merged again: a
+    mode followed downhill can land on a minimum that another seed reached too."""
+    from .. import unique as cq_unique
+    confs = []
+    for c in minima["conformers"]:
+        cid = c["conformer"]
+        rec = recs[cid]
+        usable = rec["status"] == "ok" and rec["proof"]["n_imaginary"] == 0
+        meas = rec.get("measured") or {k: c.get(k) for k in ("ring_form", "q", "theta", "phi", "orientation")}
+        confs.append({"conformer": cid, "seed": c["seed"], "usable": usable,
+                      "status": rec["status"] if rec["status"] != "ok" or usable else "saddle",
+                      "reason": rec.get("reason", ""), "degeneracy": c["degeneracy"], **meas,
+                      "energy_hartree": rec["energy_hartree"], "n_imaginary": rec["proof"]["n_imaginary"],
+                      "lowest_frequency_cm1": rec["proof"]["lowest_frequency_cm1"],
+                      "symmetry_number": rec.get("symmetry_number"), "point_group": rec.get("point_group"),
+                      "geometry": f"{FOLDER}/{cid}.xyz",
+                      "vibrations": f"{FOLDER}/{cid}.vib.json" if rec.get("vibrations") else None})
+    good = [c for c in confs if c["usable"]]
+    geoms = {c["conformer"]: read_xyz(work / f"{c['conformer']}.xyz") for c in good}
+    groups = cq_unique.unique_minima(
+        p.mol, [cq_unique.Record(c["conformer"], geoms[c["conformer"]].positions, c["energy_hartree"]) for c in good],
+        rmsd_tol=settings["unique"]["rmsd_a"], energy_tol_kcal=settings["unique"]["energy_kcal"])
+    by_id = {c["conformer"]: c for c in confs}
+    for g in groups:
+        by_id[g.name]["degeneracy"] = int(g.degeneracy)
+        for m in list(g.duplicates) + list(g.mirror_members):
+            c = by_id[m]
+            c["usable"] = False
+            c["status"] = "duplicate"
+            c["reason"] = (f"after the frequency check this is the {'mirror image' if m in g.mirror_members else 'same minimum'}"
+                           f" of {g.name}")
+    return confs
+
+
+def run(cfg, plan, name, threads=1):
+    from .. import __version__
+    settings = cfg["settings"]
+    p = load_molecule(name)
+    folder = Path(name)
+    work = folder / "work" / "thermo"
+    out = folder / FOLDER
+    out.mkdir(parents=True, exist_ok=True)
+    es = engine_settings(settings, p)
+    opt = dict(settings["optimize"])
+    th = thermo_settings(settings)
+    temps = [float(t) for t in settings["temperatures_k"]]
+    minima = fileio.read_json(folder / "minima.json")
+    jobs, recs = [], {}
+    for c in minima["conformers"]:
+        cid = c["conformer"]
+        xyz_in = folder / "minima" / f"{cid}.xyz"
+        text = xyz_in.read_text()
+        key = record_key("thermo", settings, p, text)
+        out_json = work / f"{cid}.json"
+        old = reusable(out_json, key, needs=[work / f"{cid}.xyz"])
+        if old is not None and (not old.get("vibrations") or (work / f"{cid}.vib.json").is_file()):
+            recs[cid] = old               # reuse; a failed record is retried
+            continue
+        cache = folder / "work" / "freq" / f"{cid}-{key_of(text, es, th['step_a'])[:10]}"
+        jobs.append((name, cid, key, es, opt, th, str(xyz_in), c["energy_hartree"], str(cache),
+                     str(out_json), str(work / f"{cid}.xyz"), str(work / f"{cid}.vib.json")))
+    for rec in pool_map(_freq_one, jobs, threads):
+        recs[rec["conformer"]] = rec
+    rows = []
+    for c in minima["conformers"]:
+        cid = c["conformer"]
+        r = recs[cid]
+        fileio.write_text(out / f"{cid}.xyz", (work / f"{cid}.xyz").read_text())
+        terms = {}
+        if r.get("vibrations"):
+            fileio.write_text(out / f"{cid}.vib.json", (work / f"{cid}.vib.json").read_text())
+            atoms, freqs = vibrations_of(out / f"{cid}.vib.json")
+            terms = {t: free_energy_terms(atoms, freqs, r["symmetry_number"], es["multiplicity"], th, t).to_record()
+                     for t in temps}
+        for t in temps:
+            term = terms.get(t)
+            e = r["energy_hartree"]
+            rows.append({"conformer": cid, "temperature_k": t,
+                         "zpe_hartree": term["zpe"] if term else None,
+                         "h_hartree": e + term["h_corr"] if term else None,
+                         "s_hartree_per_k": term["s_total"] if term else None,
+                         "g_hartree": e + term["g_corr"] if term else None,
+                         "symmetry_number": r.get("symmetry_number"), "degeneracy": c["degeneracy"],
+                         "lowest_frequency_cm1": r["proof"]["lowest_frequency_cm1"],
+                         "n_imaginary": r["proof"]["n_imaginary"], "status": r["status"],
+                         "energy_hartree": e, "g_corr_hartree": term["g_corr"] if term else None,
+                         "point_group": r.get("point_group"), "model": th["model"],
+                         "rounds": r["proof"]["rounds"], "reason": r["reason"]})
+    final = _final_list(p, minima, recs, work, settings)
+    fileio.write_json(folder / "thermo.json", {
+        "molecule": name, "thermo": th, "chairqm_version": __version__, "conformers": final,
+        "engine_seconds": float(sum(r["engine_seconds"] for r in recs.values())),
+        "gradient_calls": int(sum(r["gradient_calls"] for r in recs.values()))})
+    fileio.write_csv(folder / "thermo.csv", tables.frame(rows, tables.thermo(settings)))
+
+
+def write_empty(name, settings, message):
+    folder = Path(name)
+    (folder / FOLDER).mkdir(parents=True, exist_ok=True)
+    fileio.write_csv(folder / "thermo.csv", tables.frame([], tables.thermo(settings)))
+    fileio.write_json(folder / "thermo.json", {"molecule": name, "conformers": [], "engine_seconds": 0.0,
+                                               "gradient_calls": 0, "failed": message})
