@@ -63,13 +63,12 @@ def _time_levels(atoms, levels, repeats: int, threads: int) -> list[dict]:
 
 
 def _methylcyclohexane_equatorial():
-    """Equatorial chair of methylcyclohexane optimised with GFN2-xTB (as the minima stage would give it)."""
+    """Equatorial chair of methylcyclohexane optimised as the minima stage does it (chairqm.optimize with the
+    default engine and settings, bonds and stereo checked)."""
     import numpy as np
     from ase import Atoms
-    from ase.optimize import BFGS
     from rdkit import Chem
     from rdkit.Chem import AllChem
-    from tblite.ase import TBLite
 
     from chairqm import ring as cq_ring
 
@@ -81,11 +80,10 @@ def _methylcyclohexane_equatorial():
         pos = mol.GetConformer(cid).GetPositions()
         m = cq_ring.measure(pos, p.ring, p.substituents)
         if m["ring_form"] == "chair" and "equatorial" in m["orientation"]:
-            a = Atoms([x.GetSymbol() for x in mol.GetAtoms()], positions=np.asarray(pos))
-            a.calc = TBLite(method="GFN2-xTB", verbosity=0)
-            BFGS(a, logfile=None).run(fmax=0.005, steps=500)
-            a.calc = None
-            return a
+            r = C.optimise_and_check(p, pos)
+            if r["status"] != "ok":
+                raise SystemExit(f"GFN2-xTB optimisation of the equatorial chair failed: {r['reason']}")
+            return Atoms([x.GetSymbol() for x in mol.GetAtoms()], positions=np.asarray(r["positions"]))
     raise SystemExit("no equatorial chair among the embeddings: change the random seed")
 
 
