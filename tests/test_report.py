@@ -594,3 +594,61 @@ def test_refined_settings_table_lists_the_settings_the_single_points_used(refine
     run = run[:run.index("</section>")]
     row = next(r for r in _table_rows(run) if r and r[0] == "refine")
     assert "functional=PBE0" in row[1] and "basis=def2-TZVP" in row[1] and "window_kcal=2.5" in row[1]
+
+
+# ------------------------------------------------------------------------------------------ escaping, in-memory rows
+
+def _summary_as_python(folder):
+    """summary.csv as the report stage holds it before writing: Python numbers, NaN for empty cells,
+    flags as bools (pandas' own parsing of the file)."""
+    import pandas as pd
+    rows = pd.read_csv(folder / "summary.csv").to_dict("records")
+    assert {type(r["flag"]) for r in rows} == {bool, float}       # bools, and NaN on the failed molecule's rows
+    return rows
+
+
+def test_html_special_characters_in_names_are_escaped(run_folder, tmp_path):
+    project = "<b>&\"x'</b>"
+    molecule = "<i>&\"y'"                      # a summary row whose molecule has no folder (no "/" in it)
+    info = dict(copy.deepcopy(RUN_INFO), project=project)
+    rows = _summary_as_python(run_folder)
+    rows.append(dict(rows[0], molecule=molecule))
+    text = write_report(run_folder, info, path=tmp_path / "r.html", summary_rows=rows).read_text(encoding="utf-8")
+    for raw in ("<b>", "</b>", "<i>"):
+        assert raw not in text, raw
+    escaped = html.escape(project, quote=True)                   # &lt;b&gt;&amp;&quot;x&#x27;&lt;/b&gt;
+    assert f"<title>{escaped} — chairqm report</title>" in text
+    assert f"Which ring conformer dominates? — {escaped}</h1>" in text
+    assert f'<h2>{html.escape(molecule, quote=True)} <span class="badge' in text
+    assert 'id="m-_i___y_"' in text and 'href="#m-_i___y_"' in text   # < > & " ' each become _
+    parsed = _parse(text)
+    assert parsed.problems == [] and parsed.stack == []
+    words = "".join(parsed.text)
+    assert project in words and molecule in words               # and both read as written
+
+
+def test_summary_rows_in_memory_are_used_and_summary_csv_is_not_read(run_folder, page, tmp_path):
+    import shutil
+    from chairqm.report import build_report
+
+    _, from_file, _ = page
+    rows = _summary_as_python(run_folder)
+    out = tmp_path / "no-summary"
+    shutil.copytree(run_folder, out)
+    (out / "summary.csv").unlink()
+    # no summary.csv at all: the in-memory rows (bools, NaN, floats) give the page the file gives
+    assert build_report(out, RUN_INFO, summary_rows=rows) == from_file
+    # flags as the strings summary.csv holds: the same page
+    as_strings = [dict(r, flag=str(r["flag"]).lower()) if isinstance(r["flag"], bool) else r for r in rows]
+    assert build_report(out, RUN_INFO, summary_rows=as_strings) == from_file
+
+    # a stale summary.csv that disagrees with the rows handed over: the rows win
+    stale = "molecule,temperature_k,status,reason\nmethyl-chx,298.15,failed,stale file from an earlier run\n"
+    fileio.write_text(out / "summary.csv", stale)
+    text = build_report(out, RUN_INFO, summary_rows=rows)
+    assert "stale file from an earlier run" not in text
+    assert "This molecule failed" not in _article(text, "methyl-chx")
+    # the in-memory calibration of methyl-chx (1.70, 1.35 to 2.05) is on the page
+    assert "Calibrated value: 1.70 kcal/mol, 95 % interval 1.35 to 2.05 kcal/mol." in _article(text, "methyl-chx")
+    # without rows the file is read, as before
+    assert "stale file from an earlier run" in build_report(out, RUN_INFO)
