@@ -46,9 +46,9 @@ CALIBRATION_FILE = "calibration.json"
 CONFIDENCE = 0.95
 REFERENCE_TEMPERATURE_K = 298.15
 PREDICTS = "experimental = intercept + slope * computed"
-# the defaults of chairqm/schemas/config.schema.json for the keyed settings
-_DEFAULTS = {"engine": "tblite", "method": "GFN2-xTB", "solvent": None, "thermo_model": "qrrho",
-             "frequency_scale": 1.0}
+# the normalised settings a calibration is keyed by (from provenance.CALIBRATION_SETTINGS; the
+# defaults behind them are the configuration schema's, chairqm.config.settings_defaults)
+KEY_NAMES = ("engine", "method", "solvent", "thermo_model", "frequency_scale")
 
 
 @dataclass
@@ -200,16 +200,20 @@ def settings_key(settings: dict | None) -> dict:
     ``settings`` is used).  Returns {'engine', 'method', 'solvent' ('alpb:water'-style or None for gas
     phase), 'thermo_model', 'frequency_scale'}; missing entries take the configuration schema's defaults.
     """
-    s = dict(settings or {})
-    if "settings" in s and isinstance(s["settings"], dict):
-        s = dict(s["settings"])
-    thermo = s.get("thermo") or {}
-    scale = thermo.get("frequency_scale", _DEFAULTS["frequency_scale"])
-    solvent = _norm_solvent(s.get("solvent", _DEFAULTS["solvent"]))
-    return {"engine": str(s.get("engine", _DEFAULTS["engine"])),
-            "method": str(s.get("method", _DEFAULTS["method"])),
+    from .config import settings_defaults
+    from .provenance import CALIBRATION_SETTINGS
+    given = dict(settings or {})
+    if "settings" in given and isinstance(given["settings"], dict):
+        given = dict(given["settings"])
+    defaults = settings_defaults()
+    s = {k: given.get(k, defaults.get(k)) for k in CALIBRATION_SETTINGS}
+    thermo = {**defaults["thermo"], **(s.get("thermo") or {})}
+    scale = thermo["frequency_scale"]
+    solvent = _norm_solvent(s["solvent"])
+    return {"engine": str(s["engine"]),
+            "method": str(s["method"]),
             "solvent": solvent,
-            "thermo_model": str(thermo.get("model", _DEFAULTS["thermo_model"])),
+            "thermo_model": str(thermo["model"]),
             "frequency_scale": round(float(scale), 6),
             "refine": _norm_refine(s.get("refine"), solvent)}
 
@@ -256,9 +260,17 @@ def packaged_path() -> Path:
     return Path(str(resources.files("chairqm") / "data" / CALIBRATION_FILE))
 
 
+def active_path() -> Path:
+    """The calibration file runs use: $CHAIRQM_CALIBRATION when set (a file written by
+    `chairqm calibrate --save`), else the packaged one."""
+    import os
+    env = os.environ.get("CHAIRQM_CALIBRATION")
+    return Path(env) if env else packaged_path()
+
+
 def load_all(path=None) -> list[Calibration]:
-    """Every calibration in `path` (default: the packaged file); [] if the file does not exist."""
-    p = Path(path) if path is not None else packaged_path()
+    """Every calibration in `path` (default: :func:`active_path`); [] if the file does not exist."""
+    p = Path(path) if path is not None else active_path()
     if not p.is_file():
         return []
     try:
@@ -284,7 +296,7 @@ def save(calibration: Calibration, path) -> None:
 def settings_key_of(c: Calibration) -> dict | None:
     """The stored key of a calibration, or None if it lacks one of the keyed settings (it then matches nothing)."""
     k = c.settings or {}
-    if any(name not in k for name in _DEFAULTS):
+    if any(name not in k for name in KEY_NAMES):
         return None
     return {"engine": str(k["engine"]), "method": str(k["method"]), "solvent": _norm_solvent(k["solvent"]),
             "thermo_model": str(k["thermo_model"]), "frequency_scale": float(k["frequency_scale"]),
@@ -295,7 +307,7 @@ def file_fingerprint(path=None) -> str:
     """SHA-256 (first 16 hex digits) of the calibration file, '' if absent: pass it through a workflow
     rule's params so results are re-made when the calibration changes."""
     import hashlib
-    p = Path(path) if path is not None else packaged_path()
+    p = Path(path) if path is not None else active_path()
     return hashlib.sha256(p.read_bytes()).hexdigest()[:16] if p.is_file() else ""
 
 

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 import os
-import re
 import subprocess
 import sys
 from pathlib import Path
@@ -208,8 +207,10 @@ def cmd_avalue(args, extra) -> int:
     smiles = additivity.reference_smiles(frag)
     name = _slug(frag).replace("ref-", "avalue-", 1)
     out = Path(args.out or Path("results") / name)
-    settings = {"temperatures_k": args.temperature or [298.15], "engine": args.engine, "method": args.method,
-                "analysis": {"reference_groups": False}}
+    # only what the user gave; every other setting takes the schema's default
+    given = {"temperatures_k": args.temperature, "engine": args.engine, "method": args.method}
+    settings = {k: v for k, v in given.items() if v is not None}
+    settings["analysis"] = {"reference_groups": False}
     if args.solvent:
         model, _, sname = args.solvent.partition(":")
         if not sname:
@@ -228,6 +229,7 @@ def cmd_avalue(args, extra) -> int:
         return code or 1
     import pandas as pd
     df = pd.read_csv(summary, keep_default_na=False)
+    used = {**cq_config.settings_defaults(), **settings}
     tab = avalues.lookup(frag)
     for r in df.itertuples():
         if r.status != "ok" or r.a_value_kcal == "":
@@ -239,7 +241,7 @@ def cmd_avalue(args, extra) -> int:
         eq = chairs.loc[chairs["axial"].isna(), "population"].sum()
         ax = chairs.loc[chairs["axial"].notna(), "population"].sum()
         line = (f"A({frag}) = {float(r.a_value_kcal):.2f} kcal/mol at {r.temperature_k:g} K "
-                f"({settings['method']}, {args.engine}, {args.solvent or 'gas phase'}); "
+                f"({used['method']}, {used['engine']}, {args.solvent or 'gas phase'}); "
                 f"equatorial chair {100 * eq:.1f} %, axial chair {100 * ax:.1f} %, "
                 f"other ring forms {100 * float(r.twist_boat_population):.1f} %")
         cal = getattr(r, "calibrated_kcal", "")
@@ -321,10 +323,12 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("fragment", help="the group as SMILES with one attachment point [*]")
     a.add_argument("--out", help="output folder (default results/avalue-<group>)")
     a.add_argument("--cores", type=int, default=2)
-    a.add_argument("--temperature", type=float, action="append", help="kelvin; repeat for several (default 298.15)")
+    defaults = cq_config.settings_defaults()
+    a.add_argument("--temperature", type=float, action="append",
+                   help=f"kelvin; repeat for several (default {', '.join(f'{t:g}' for t in defaults['temperatures_k'])})")
     a.add_argument("--solvent", help="MODEL:NAME, e.g. alpb:water (default gas phase)")
-    a.add_argument("--engine", default="tblite", choices=["tblite", "xtb-python"])
-    a.add_argument("--method", default="GFN2-xTB", choices=["GFN2-xTB", "GFN1-xTB"])
+    a.add_argument("--engine", choices=["tblite", "xtb-python"], help=f"default {defaults['engine']}")
+    a.add_argument("--method", choices=["GFN2-xTB", "GFN1-xTB"], help=f"default {defaults['method']}")
     k = sub.add_parser("calibrate", help="compute the reference set and fit computed against experimental A-values")
     k.add_argument("config", nargs="?", default=str(project_root() / "configs" / "reference.yaml"))
     k.add_argument("--out", help="output folder (default results/<config name>)")

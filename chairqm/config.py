@@ -40,6 +40,14 @@ def _fill_defaults(node, schema):
                     _fill_defaults(item, sub.get("items", {}))
 
 
+def settings_defaults() -> dict:
+    """The settings block of a configuration that gives none: every default, read from the schema (the
+    only place defaults are written)."""
+    node = {}
+    _fill_defaults(node, load_schema()["properties"]["settings"])
+    return node
+
+
 def _subschema(schema, path):
     node = schema
     for part in path:

@@ -835,3 +835,40 @@ def test_refine_failure_is_isolated_then_retried_and_finished_records_are_kept(t
     assert json.loads((out / "mch" / "refine.json").read_text())["settings"]["window_kcal"] == 0.5  # it did rerun
     for name, stamp in stamps.items():
         assert (out / "mch" / "work" / "refine" / name).stat().st_mtime_ns == stamp, name
+
+
+# ------------------------------------------------------------- 6. late-stage crashes and their retry
+
+@pytest.mark.slow
+@pytest.mark.parametrize("stage", ["refine", "ensemble"])
+def test_late_stage_crash_is_isolated_and_a_plain_rerun_retries_it(tmp_path, stage):
+    """An unexpected error inside refine or ensemble fails only its molecule, with the same report and
+    headers as a crash in minima; once the cause is gone, the same command again recomputes the failed
+    stage (its empty outputs must not count as up to date) and the molecule finishes."""
+    pytest.importorskip("pyscf")
+    cfg = write_config(tmp_path / "late.yaml", [{"name": "mch", "smiles": "CC1CCCCC1"},
+                                                {"name": "chx", "smiles": "C1CCCCC1"}], CHEAP_REFINE)
+    out = tmp_path / "out"
+    proc = chairqm_run(cfg, out, cores=2, env=clean_env(CHAIRQM_FAULTS=json.dumps({"crash": [f"mch/{stage}"]})))
+    assert proc.returncode == 1, tail(proc.stderr)          # a molecule failed; the run itself finished
+    failed = json.loads((out / "mch" / "failed.json").read_text())
+    assert failed["stage"] == stage and "injected fault" in failed["reason"]
+    assert _summary(out, "mch")["status"] == "failed" and stage in _summary(out, "mch")["reason"]
+    assert _summary(out, "chx")["status"] == "ok"
+    assert "injected fault" in (out / "report.html").read_text()
+    # one header per contract file: the failed molecule's tables carry the successful one's columns
+    for f in ("refine.csv", "families.csv", "conformers.csv", "thermo.csv", "minima.csv", "seeds.csv"):
+        assert list(_table(out, "mch", f).columns) == list(_table(out, "chx", f).columns), f
+    proc = chairqm_run(cfg, out, cores=2)
+    assert proc.returncode == 0, tail(proc.stderr)
+    assert not (out / "mch" / "failed.json").exists()
+    assert _summary(out, "mch")["status"] == "ok"
+    assert float(_summary(out, "mch")["a_value_kcal"]) > 0     # methyl prefers equatorial (any handbook)
+
+
+@pytest.mark.slow
+def test_minima_crash_headers_match_a_successful_molecule(faulty_run):
+    """The failure path writes every table with the success path's columns."""
+    out, _ = faulty_run
+    for f in ("minima.csv", "thermo.csv", "families.csv", "conformers.csv"):
+        assert list(_table(out, "chx-crash", f).columns) == list(_table(out, "mch-scf", f).columns), f
