@@ -1,15 +1,13 @@
 # chairqm workflow. Started by `chairqm run`, which passes the configuration path as
 #   --config chairqm_config=/abs/path.yaml   and runs in the output folder (--directory OUT).
-# The shared code is in workflows/rules/common.smk; each stage has its rule file, named like its module
-# in chairqm/stages/.
+# The shared code is in workflows/rules/common.smk; each stage of the registry (chairqm.stages.STAGES)
+# has its rule file workflows/rules/STAGE.smk, named like its module chairqm/stages/STAGE.py.
 
 
 include: "workflows/rules/common.smk"
 include: "workflows/rules/targets.smk"
-include: "workflows/rules/intake.smk"
-include: "workflows/rules/seeds.smk"
-include: "workflows/rules/minima.smk"
-include: "workflows/rules/thermo.smk"
-include: "workflows/rules/refine.smk"
-include: "workflows/rules/ensemble.smk"
-include: "workflows/rules/report.smk"
+
+
+for _stage in cq_stages.names():
+
+    include: f"workflows/rules/{_stage}.smk"

@@ -88,6 +88,17 @@ def normalise_orientation(orientation) -> str:
     return format_orientation(parse_orientation(orientation))
 
 
+def on_axis(gap_kcal, preferred, axis_preferred):
+    """A chair gap re-expressed on one axis: the project's chair-gap axis is G(second) − G(preferred) of the
+    molecule's computed chairs (the refined ones when refinement ran). `gap_kcal` ≥ 0 was measured with
+    `preferred` as its lower chair (a family key or orientation string); on the axis whose lower chair is
+    `axis_preferred` it keeps its sign when both name the same chair and changes it otherwise (negative:
+    that estimate prefers the other chair). None stays None; 0 stays 0."""
+    if gap_kcal is None or not gap_kcal:
+        return gap_kcal
+    return gap_kcal if preferred == axis_preferred else -gap_kcal
+
+
 def family_key(ring_form: str, orientation) -> str:
     """One string naming a family: the ring form, a space, the normalised orientation.
 

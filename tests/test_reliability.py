@@ -61,7 +61,7 @@ def observe(key, value):
 
 def clean_env(**extra):
     env = {k: v for k, v in os.environ.items()
-           if k not in ("CHAIRQM_FAULTS", "CHAIRQM_VERBOSE", "SNAKEMAKE_PROFILE", "PYTHONPATH")}
+           if k not in ("CHAIRQM_FAULTS", "CHAIRQM_VERBOSE", "CHAIRQM_CALIBRATION", "SNAKEMAKE_PROFILE", "PYTHONPATH")}
     env["OMP_NUM_THREADS"] = "1"
     env.update(extra)
     return env
@@ -492,6 +492,21 @@ def test_new_chairqm_version_reruns_everything(planned_reruns):
     planned = _jobs_planned(planned_reruns[NEW_VERSION])
     assert planned == STAGE_RULES, f"would rerun {sorted(planned)}"
     observe("trigger", {"case": NEW_VERSION, "reruns": sorted(planned)})
+
+
+@pytest.mark.slow
+def test_a_new_calibration_reruns_only_the_report(base, finished_copy, tmp_path):
+    """The report applies the calibration, so a changed calibration file must remake it (and nothing
+    else); the same content in another file changes nothing."""
+    from chairqm import calibration as cq_cal
+    root, cfg = base
+    cal = tmp_path / "calibration.json"
+    cal.write_text(cq_cal.packaged_path().read_text())
+    same = chairqm_run(cfg, finished_copy, extra=["--dry-run"], env=clean_env(CHAIRQM_CALIBRATION=str(cal)))
+    assert _jobs_planned(same) == set()
+    cal.write_text("[]\n")
+    changed = chairqm_run(cfg, finished_copy, extra=["--dry-run"], env=clean_env(CHAIRQM_CALIBRATION=str(cal)))
+    assert _jobs_planned(changed) == {"report"}
 
 
 @pytest.mark.slow

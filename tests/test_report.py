@@ -388,8 +388,12 @@ def _unrefined_summary(spec, t):
     """chair gap, A-value, preferred family, non-chair population of the made-up GFN2-xTB-only values."""
     gs = UNREFINED_G[spec["name"]]
     fams = spec["families"]
-    chairs = sorted((g, f) for g, f in zip(gs, fams) if f[0] == "chair")
+    chairs = sorted(((g, f) for g, f in zip(gs, fams) if f[0] == "chair"), key=lambda x: x[0])
     gap = chairs[1][0] - chairs[0][0]
+    # one chair-gap axis: the refined chairs' (negative when GFN2-xTB alone prefers the other chair)
+    refined_best = min((f for f in fams if f[0] == "chair"), key=lambda f: f[2])
+    if chairs[0][1] is not refined_best:
+        gap = -gap
     mono = len(fams[0][1]) == 1
     a_value = (gap if chairs[0][1][1]["s1"] == "equatorial" else -gap) if mono else None
     best = min(zip(gs, fams), key=lambda x: x[0])[1]

@@ -4,9 +4,8 @@ Per molecule the declared outputs of the earlier stages are read — molecule.js
 families.csv, conformers.csv, minima.csv and, after a DFT refinement, refine.csv and refine.json — and the
 run's summary rows are either handed over in memory (the report stage has just computed them) or, for
 older callers, read from summary.csv. Nothing here formats a value or writes HTML; nothing is computed
-beyond merging the summary row of a temperature under ensemble.json's entry for it (the one exception: a
-refined molecule's GFN2-xTB-only chair gap is given the sign of the refined chairs' axis, see
-`gfn2_chair_gap`).
+beyond merging the summary row of a temperature under ensemble.json's entry for it. Every chair gap
+arrives on one axis, G(second) − G(preferred) of the computed (refined, when refinement ran) chairs.
 """
 
 from __future__ import annotations
@@ -165,16 +164,13 @@ class Molecule:
         return chairs[1] if len(chairs) > 1 else None
 
     def gfn2_chair_gap(self, e: Entry):
-        """A refined molecule's GFN2-xTB-only chair gap on the axis of the refined chairs (positive: the same
-        chair is preferred without the single points), with that chair family; (None, family) if unknown."""
+        """A refined molecule's GFN2-xTB-only chair gap, already on the refined chairs' axis (the ensemble
+        stage writes every gap on one axis; positive: the same chair is preferred without the single
+        points), with GFN2-xTB's preferred chair family; (None, family) if unknown."""
         u = e.unrefined
         best_u = self.chair_of(e.t, "best", "g_rel_unrefined_kcal")
-        best = self.chair_of(e.t, "best")
         gap_u = u.chair_dg_kcal if u is not None else None
-        if gap_u is None or best_u is None or best is None:
-            return None, best_u
-        same = best_u.get("orientation", "") == best.get("orientation", "")
-        return (abs(gap_u) if same else -abs(gap_u)), best_u
+        return gap_u, best_u
 
 
 @dataclass

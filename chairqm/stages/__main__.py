@@ -1,4 +1,5 @@
-"""Runner of one stage: `python -m chairqm.stages STAGE --config C [--molecule M] [--threads N]`.
+"""Runner of one stage: `python -m chairqm.stages STAGE --config C [--molecule M] [--threads N]`
+(inside the workflow the configuration comes from $CHAIRQM_CONFIG).
 
 What it guarantees around every stage (the stages themselves only compute and write):
 - temporary files of an interrupted atomic write are removed before the stage runs again;
@@ -12,6 +13,7 @@ What it guarantees around every stage (the stages themselves only compute and wr
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from pathlib import Path
 
@@ -68,10 +70,13 @@ def record_failure(stage: str, name: str, settings: dict, message: str) -> None:
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(prog="python -m chairqm.stages")
     ap.add_argument("stage", choices=names())
-    ap.add_argument("--config", required=True)
+    ap.add_argument("--config", default=os.environ.get("CHAIRQM_CONFIG"),
+                    help="the run's configuration (default: $CHAIRQM_CONFIG, which the workflow sets)")
     ap.add_argument("--molecule", default=None)
     ap.add_argument("--threads", type=int, default=1)
     args = ap.parse_args(argv)
+    if not args.config:
+        ap.error("give --config CONFIG (or set CHAIRQM_CONFIG)")
     stage = get(args.stage)
     if stage.per_molecule and not args.molecule:
         ap.error(f"stage {stage.name} needs --molecule")

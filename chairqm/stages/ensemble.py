@@ -134,13 +134,14 @@ def _analyse_temperature(p, plan, name, settings, usable_df, t):
     additive = None
     if est is not None:
         # every gap on the computed chairs' axis: G(second computed chair) − G(preferred computed chair)
-        flip = bool(est.dg_kcal) and est.preferred_orientation != summ.get("preferred_chair_orientation")
-        sign = -1.0 if flip else 1.0
-        additive = {"dg_kcal": _clean(None if est.dg_kcal is None else sign * est.dg_kcal),
-                    "source": est.source, "reason": est.reason,
+        axis = summ.get("preferred_chair_orientation")
+        pref = est.preferred_orientation if est.dg_kcal is not None else axis
+
+        def on_axis(v):
+            return _clean(cq_ens.on_axis(v, pref, axis) if est.dg_kcal else v)
+        additive = {"dg_kcal": on_axis(est.dg_kcal), "source": est.source, "reason": est.reason,
                     "terms": [[str(a), _clean(b)] for a, b in est.terms],
-                    "tabulated_dg_kcal": _clean(None if est.tabulated_dg_kcal is None else sign * est.tabulated_dg_kcal),
-                    "qm_dg_kcal": _clean(None if est.qm_dg_kcal is None else sign * est.qm_dg_kcal),
+                    "tabulated_dg_kcal": on_axis(est.tabulated_dg_kcal), "qm_dg_kcal": on_axis(est.qm_dg_kcal),
                     "preferred_orientation": est.preferred_orientation}
     row = {"temperature_k": float(t), "preferred_family": summ.get("preferred_family"),
            "chair_dg_kcal": _clean(summ.get("chair_dg_kcal")),
@@ -194,6 +195,9 @@ def run(cfg, plan, name, threads=1):
                     on=["ring_form", "orientation"], how="left")
                 row["unrefined"] = {k: row_u[k] for k in ("preferred_family", "chair_dg_kcal", "a_value_kcal",
                                                           "twist_boat_population", "flag", "flag_reason")}
+                # the one chair-gap axis: the refined chairs' (negative: GFN2-xTB alone prefers the other chair)
+                row["unrefined"]["chair_dg_kcal"] = cq_ens.on_axis(row_u["chair_dg_kcal"], row_u["preferred_chair"],
+                                                                   row["preferred_chair"])
             fam_frames.append(fam)
             out["temperatures"].append(row)
         for c in confs:

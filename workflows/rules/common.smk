@@ -1,6 +1,7 @@
 # Shared workflow code: configuration and plan loading, stage outputs from the one stage registry
 # (chairqm.stages.STAGES), fingerprints from the one table of result-relevant settings
 # (chairqm.provenance.RESULT_SETTINGS), input functions and wildcard constraints.
+import os
 import sys
 
 import snakemake.utils
@@ -26,6 +27,12 @@ snakemake.utils.validate({k: v for k, v in CFG.items() if not k.startswith("_")}
 PLAN = cq_plan.make_plan(CFG)
 if PLAN.problems:
     sys.exit("chairqm: {}".format("\n".join(PLAN.problems)))
+
+# The stage jobs find the configuration through the environment (inherited by every job, and set again
+# when a cluster job parses this workflow with the same --config), so that its path is not a rule
+# parameter: the same settings in another file must not rerun anything (the fingerprints carry the
+# settings themselves).
+os.environ.update(CHAIRQM_CONFIG=CONFIG_PATH)
 
 MOLECULES = PLAN.names()
 SETTINGS = CFG["settings"]
@@ -91,8 +98,8 @@ def report_inputs(wc):
 
 
 def stage_command(stage, threads=False, molecule=True):
-    """The shell command of a stage's rule; the configuration path comes from params.config."""
-    parts = [STAGE_COMMAND, stage, "--config {params.config:q}"]
+    """The shell command of a stage's rule (the configuration comes from $CHAIRQM_CONFIG)."""
+    parts = [STAGE_COMMAND, stage]
     if molecule:
         parts.append("--molecule={wildcards.mol:q}")
     if threads:

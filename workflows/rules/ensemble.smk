@@ -12,7 +12,6 @@ rule ensemble:
     output:
         **stage_outputs("ensemble"),
     params:
-        config=CONFIG_PATH,
         fp=fingerprint("ensemble"),
     log:
         "{mol}/logs/ensemble.log",

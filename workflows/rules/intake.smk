@@ -5,7 +5,6 @@ rule intake:
     output:
         **stage_outputs("intake"),
     params:
-        config=CONFIG_PATH,
         fp=lambda wc: fingerprint("intake", entry=PLAN.get(wc.mol).mapped_smiles),
     log:
         "{mol}/logs/intake.log",

@@ -10,7 +10,6 @@ rule minima:
     output:
         **stage_outputs("minima"),
     params:
-        config=CONFIG_PATH,
         fp=fingerprint("minima"),
     threads: 2
     log:

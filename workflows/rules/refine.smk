@@ -12,7 +12,6 @@ rule refine:
     output:
         **stage_outputs("refine"),
     params:
-        config=CONFIG_PATH,
         fp=fingerprint("refine"),
     threads: 2
     resources:

@@ -7,7 +7,6 @@ rule report:
     output:
         **stage_outputs("report"),
     params:
-        config=CONFIG_PATH,
         fp=fingerprint("report", project=CFG.get("project", ""), calibration=cq_calibration.file_fingerprint()),
     log:
         "logs/report.log",

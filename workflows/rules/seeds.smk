@@ -7,7 +7,6 @@ rule seeds:
     output:
         **stage_outputs("seeds"),
     params:
-        config=CONFIG_PATH,
         fp=fingerprint("seeds"),
     log:
         "{mol}/logs/seeds.log",

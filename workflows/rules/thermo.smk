@@ -10,7 +10,6 @@ rule thermo:
     output:
         **stage_outputs("thermo"),
     params:
-        config=CONFIG_PATH,
         fp=fingerprint("thermo"),
     threads: 2
     log:
