@@ -43,13 +43,13 @@ def _label(level: dict) -> str:
 
 
 def _time_levels(atoms, levels, repeats: int, threads: int) -> list[dict]:
-    from chairqm import refine
+    from chairqm import dft
     rows = []
     for level in levels:
         secs, res = [], None
         for _ in range(repeats):
             t0 = time.perf_counter()
-            res = refine.single_point(atoms, 0, 1, level, threads=threads)
+            res = dft.single_point(atoms, 0, 1, level, threads=threads)
             secs.append(time.perf_counter() - t0)
             if not res["converged"]:
                 raise SystemExit(f"{_label(level)}: SCF did not converge ({res['message']})")

@@ -42,6 +42,32 @@ def stereo_from_3d(mol: Chem.Mol, positions) -> Chem.Mol:
     return copy
 
 
+def reference_stereo(mol):
+    """(a copy of `mol` with its stereo perceived, {atom: chiral tag}, {bond: E/Z}) of its stereo elements."""
+    work = Chem.Mol(mol)
+    Chem.AssignStereochemistry(work, cleanIt=True, force=True)
+    tags = {a.GetIdx(): a.GetChiralTag() for a in work.GetAtoms()
+            if a.GetChiralTag() in (Chem.ChiralType.CHI_TETRAHEDRAL_CW, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)}
+    bonds = {b.GetIdx(): b.GetStereo() for b in work.GetBonds()
+             if b.GetStereo() in (Chem.BondStereo.STEREOE, Chem.BondStereo.STEREOZ)}
+    return work, tags, bonds
+
+
+def stereo_differences(mol, tags, bonds, X) -> list:
+    """The stereo elements of `tags`/`bonds` whose configuration perceived at positions X differs."""
+    tmp = stereo_from_3d(mol, X)
+    bad = [f"atom {i}" for i, t in tags.items() if tmp.GetAtomWithIdx(i).GetChiralTag() != t]
+    bad += [f"bond {b}" for b, st in bonds.items() if tmp.GetBondWithIdx(b).GetStereo() != st]
+    return bad
+
+
+def stereo_mismatch(mol, positions) -> list[str]:
+    """Stereo elements (tetrahedral atoms, double bonds) whose configuration perceived from `positions`
+    (RDKit AssignStereochemistryFrom3D) differs from the one `mol` carries; empty if all agree."""
+    work, tags, bonds = reference_stereo(mol)
+    return stereo_differences(work, tags, bonds, positions)
+
+
 # ------------------------------------------------------------------------------------------ superposition
 def kabsch(P, Q, improper: bool = False, centre: bool = True) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Orthogonal matrix R and centres (q̄, p̄) minimising Σ_i |R (q_i − q̄) + p̄ − p_i|² (Kabsch, Acta

@@ -223,7 +223,7 @@ def check_settings(engine: str, method: str, solvent: dict | None = None) -> Non
     if model not in ("alpb", "gbsa"):
         raise ChairqmError(f"unknown solvent model {solvent['model']!r}: choose alpb or gbsa.")
     if model not in SOLVENT_MODELS[engine]:
-        raise ChairqmError(f"xtb-python has no ALPB solvation: use engine tblite for ALPB, "
+        raise ChairqmError("xtb-python has no ALPB solvation: use engine tblite for ALPB, "
                            f"or solvent model gbsa with xtb-python.")
     valid = valid_solvents(engine, model, method)
     if name in valid:

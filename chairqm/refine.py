@@ -27,9 +27,6 @@ from chairqm.dft import did_you_mean as _did_you_mean
 from chairqm.errors import ChairqmError
 from chairqm.units import KCAL_PER_HARTREE
 
-single_point = dft.single_point  # moved to chairqm.dft; alias for the stage package until it switches
-xtb_solvation_hartree = dft.xtb_solvation_hartree  # moved to chairqm.dft; alias for the stage package until it switches
-versions = dft.versions  # moved to chairqm.dft; alias for the stage package until it switches
 
 
 # ------------------------------------------------------------------------------------------ settings

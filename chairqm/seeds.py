@@ -38,7 +38,6 @@ from __future__ import annotations
 import functools
 import itertools
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import numpy as np
 from rdkit import Chem, RDLogger
@@ -83,10 +82,6 @@ DECIMALS_START = 5          # Å, embedded structures and rotamer starts handed 
 DECIMALS_OUT = 6            # Å, final seed positions
 
 STATUSES = ("ok", "merged", "screened", "failed")
-TABLE_COLUMNS = ["seed", "ring_form", "q", "theta", "phi", "orientation", "ff_energy_kcal", "status",
-                 "template", "reason"]
-
-
 @dataclass(frozen=True)
 class Template:
     """A ring template: name, intended form and Cremer–Pople (q [Å], theta, phi [deg])."""
@@ -182,7 +177,7 @@ def _prepare(mol, ring, substituents, settings) -> _Context:
         if mol.GetBondBetweenAtoms(ring[k], ring[(k + 1) % 6]) is None:
             raise ChairqmError(f"ring atoms {ring[k]} and {ring[(k + 1) % 6]} are not bonded: "
                                "give the ring atoms in order around the ring")
-    work, ref_tags, ref_bonds = _reference_stereo(mol)
+    work, ref_tags, ref_bonds = chem.reference_stereo(mol)
     work.RemoveAllConformers()
     for info in Chem.FindPotentialStereo(work):
         if info.type == Chem.StereoType.Atom_Tetrahedral and info.centeredOn in ring \
@@ -315,32 +310,8 @@ def _relax(ctx, X, targets):
     return Y, energy, note
 
 
-def _reference_stereo(mol):
-    work = Chem.Mol(mol)
-    Chem.AssignStereochemistry(work, cleanIt=True, force=True)
-    tags = {a.GetIdx(): a.GetChiralTag() for a in work.GetAtoms()
-            if a.GetChiralTag() in (Chem.ChiralType.CHI_TETRAHEDRAL_CW, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)}
-    bonds = {b.GetIdx(): b.GetStereo() for b in work.GetBonds()
-             if b.GetStereo() in (Chem.BondStereo.STEREOE, Chem.BondStereo.STEREOZ)}
-    return work, tags, bonds
-
-
-def _mismatch(mol, tags, bonds, X) -> list:
-    tmp = chem.stereo_from_3d(mol, X)
-    bad = [f"atom {i}" for i, t in tags.items() if tmp.GetAtomWithIdx(i).GetChiralTag() != t]
-    bad += [f"bond {b}" for b, st in bonds.items() if tmp.GetBondWithIdx(b).GetStereo() != st]
-    return bad
-
-
-def stereo_mismatch(mol, positions) -> list[str]:
-    """Stereo elements (tetrahedral atoms, double bonds) whose configuration perceived from `positions`
-    (RDKit AssignStereochemistryFrom3D) differs from the one `mol` carries; empty if all agree."""
-    work, tags, bonds = _reference_stereo(mol)
-    return _mismatch(work, tags, bonds, positions)
-
-
 def _stereo_mismatch(ctx, X) -> list:
-    return _mismatch(ctx.mol, ctx.ref_tags, ctx.ref_bonds, X)
+    return chem.stereo_differences(ctx.mol, ctx.ref_tags, ctx.ref_bonds, X)
 
 
 def _embed(ctx, pos, seed):
@@ -510,47 +481,3 @@ def build_seeds(mol, ring, substituents, settings=None) -> list[Seed]:
         out.append(Seed(name=tpl.name, template=tpl.name, status="screened",
                         reason="twist-boats switched off (seeds.twist_boats = false)"))
     return out
-
-
-def seeds_table(seeds):
-    """The seeds table (pandas DataFrame) with TABLE_COLUMNS, one row per seed including non-kept ones."""
-    import pandas as pd
-
-    def r(x, nd):
-        return None if x is None else round(float(x), nd)
-
-    rows = [{"seed": s.name, "ring_form": s.ring_form, "q": r(s.q, 4), "theta": r(s.theta, 2),
-             "phi": None if s.phi is None else r(s.phi, 2) % 360.0, "orientation": s.orientation,
-             "ff_energy_kcal": r(s.ff_energy_kcal, 4),
-             "status": s.status, "template": s.template, "reason": s.reason} for s in seeds]
-    return pd.DataFrame(rows, columns=TABLE_COLUMNS)
-
-
-def xyz_text(seed: Seed, mol) -> str:
-    """Extended-XYZ text of one seed (ASE reads the comment line's key=value pairs)."""
-    syms = [a.GetSymbol() for a in mol.GetAtoms()]
-    X = np.asarray(seed.positions, dtype=float)
-    if X.shape != (len(syms), 3):
-        raise ValueError(f"seed {seed.name}: positions do not match the molecule's {len(syms)} atoms")
-    e = "nan" if seed.ff_energy_kcal is None else f"{seed.ff_energy_kcal:.6f}"
-    comment = (f'Properties=species:S:1:pos:R:3 seed={seed.name} template={seed.template} '
-               f'ring_form={seed.ring_form} q={seed.q:.4f} theta={seed.theta:.2f} phi={seed.phi:.2f} '
-               f'orientation="{seed.orientation}" ff_energy_kcal={e} forcefield={seed.forcefield or "none"} '
-               f'pbc="F F F"')
-    lines = [str(len(syms)), comment]
-    for s, (x, y, z) in zip(syms, X):
-        # +0.0 turns -0.0 into 0.0 so the text never depends on the sign of a zero
-        lines.append(f"{s:<2s} {x + 0.0:15.8f} {y + 0.0:15.8f} {z + 0.0:15.8f}")
-    return "\n".join(lines) + "\n"
-
-
-def write_seeds(seeds, folder, mol):
-    """Write `<name>.xyz` (extended XYZ) for every kept seed into `folder`; return the seeds table."""
-    from .fileio import write_text
-
-    folder = Path(folder)
-    folder.mkdir(parents=True, exist_ok=True)
-    for s in seeds:
-        if s.status == "ok" and s.positions is not None:
-            write_text(folder / f"{s.name}.xyz", xyz_text(s, mol))
-    return seeds_table(seeds)

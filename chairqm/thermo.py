@@ -20,7 +20,6 @@ import numpy as np
 from ase import Atoms
 from ase.units import create_units
 
-from chairqm import symmetry
 from chairqm.errors import ChairqmError
 
 # CODATA 2018 through ASE: the plain `ase.units` module is still CODATA 2014 in ASE 3.2x, so the 2018 set is
@@ -51,7 +50,6 @@ BAV_KG_M2 = 1.0e-44
 #: chairqm.vibrations.DEFAULT_IMAGINARY_THRESHOLD, the same number) and are counted as real with |ν|.
 IMAGINARY_THRESHOLD_CM1 = 15.0
 
-symmetry_number = symmetry.symmetry_number  # moved to chairqm.symmetry; alias for the stage package until it switches
 
 
 # ==================================================================================== thermochemistry

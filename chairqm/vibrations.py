@@ -19,7 +19,6 @@ import hashlib
 import json
 import logging
 import math
-import os
 import time
 from dataclasses import dataclass, field
 from pathlib import Path

@@ -13,6 +13,8 @@ from rdkit.Chem import AllChem
 
 from chairqm import rotamers
 from chairqm import seeds as S
+from chairqm import chem
+from chairqm.stages import seeds as seed_stage
 from chairqm.chem import dihedral
 from chairqm.errors import ChairqmError
 from chairqm.ring import classify, cremer_pople
@@ -272,9 +274,9 @@ def test_stereo_is_kept_and_checked():
         m.AddConformer(conf, assignId=True)
         Chem.AssignStereochemistryFrom3D(m)
         assert Chem.FindMolChiralCenters(m, includeUnassigned=True, useLegacyImplementation=False) == ref
-        assert S.stereo_mismatch(mol, s.positions) == []
+        assert chem.stereo_mismatch(mol, s.positions) == []
     # the mirror image has every centre inverted, and the check says so
-    assert len(S.stereo_mismatch(mol, ok[0].positions * np.array([1.0, 1.0, -1.0]))) == 3
+    assert len(chem.stereo_mismatch(mol, ok[0].positions * np.array([1.0, 1.0, -1.0]))) == 3
 
 
 def test_no_seed_is_lost_silently():
@@ -300,7 +302,7 @@ def test_written_files_are_identical_across_runs(tmp_path):
     for k in (1, 2):
         mol, ring, subs = prepare("COC1CCCCC1")
         seeds = S.build_seeds(mol, ring, subs, {})
-        tables.append(S.write_seeds(seeds, tmp_path / f"run{k}", mol))
+        tables.append(seed_stage.write_seeds(seeds, tmp_path / f"run{k}", mol))
     a = sorted(p.name for p in (tmp_path / "run1").iterdir())
     b = sorted(p.name for p in (tmp_path / "run2").iterdir())
     assert a == b and a
@@ -324,7 +326,8 @@ me = [0] + [n.GetIdx() for n in mol.GetAtomWithIdx(0).GetNeighbors() if n.GetAto
 nh = next(n.GetIdx() for n in mol.GetAtomWithIdx(4).GetNeighbors() if n.GetAtomicNum() == 1)
 subs = [SimpleNamespace(id="s1", ring_atom=1, first_atom=0, atoms=sorted(me), fragment="[*]C"),
         SimpleNamespace(id="s2", ring_atom=4, first_atom=nh, atoms=[nh], fragment="[*][H]")]
-S.write_seeds(S.build_seeds(mol, ring, subs, {}), sys.argv[1], mol).to_csv(sys.argv[1] + "/table.csv", index=False)
+from chairqm.stages.seeds import write_seeds
+write_seeds(S.build_seeds(mol, ring, subs, {}), sys.argv[1], mol).to_csv(sys.argv[1] + "/table.csv", index=False)
 """
 
 
@@ -347,7 +350,7 @@ def test_written_files_are_identical_across_processes(tmp_path):
 def test_write_seeds_table_and_xyz(tmp_path):
     import ase.io
     mol, ring, subs, seeds = run("CC1CCCCC1")
-    df = S.write_seeds(seeds, tmp_path, mol)
+    df = seed_stage.write_seeds(seeds, tmp_path, mol)
     assert list(df.columns) == ["seed", "ring_form", "q", "theta", "phi", "orientation", "ff_energy_kcal",
                                 "status", "template", "reason"]
     assert len(df) == len(seeds)
@@ -420,5 +423,5 @@ def test_a_template_that_cannot_be_built_is_reported(monkeypatch):
     assert {s.name for s in failed} == {"chair-1", "chair-2", "chair-1-v2", "chair-2-v2"}
     assert all("embedding" in s.reason and s.positions is None for s in failed)
     # the table still lists every seed
-    df = S.seeds_table(seeds)
+    df = seed_stage.seeds_table(seeds)
     assert len(df) == len(seeds) and set(df["status"]) >= {"failed"}

@@ -220,3 +220,13 @@ def test_published_hessian_opens_with_ase_and_gives_our_frequencies(tmp_path):
     # 1595, 3657, 3756 cm-1, NIST CCCBDB) — a sanity check that the stored Hessian is in eV/Å²
     assert 1400 < ours[0] < 1700 and ours[1] > 3300
     assert math.isfinite(c.g(298.15))
+
+
+def test_every_chair_gap_is_given_on_one_axis():
+    """G(second) − G(preferred) of the computed chairs: an estimate that prefers the other chair is
+    negative on it (common practice for a signed difference), whatever its own sign convention."""
+    from chairqm.ensemble import on_axis
+    assert on_axis(1.2, "s1=equatorial", "s1=equatorial") == 1.2
+    assert on_axis(1.2, "s1=axial", "s1=equatorial") == -1.2
+    assert on_axis(0.0, "s1=axial", "s1=equatorial") == 0.0 and str(on_axis(0.0, "a", "b")) == "0.0"
+    assert on_axis(None, "s1=axial", "s1=equatorial") is None

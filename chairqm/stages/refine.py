@@ -24,17 +24,17 @@ def refine_settings(settings):
 
 def _refine_one(job):
     """One DFT single point on a GFN2-xTB minimum; record written atomically."""
-    from .. import refine as cq_refine
+    from .. import dft
     name, cid, key, rs, es, solvent, xyz, out_json, scratch = job
     p = load_molecule(name)
     atoms = read_xyz(xyz)
     if fault("dft_scf", f"{name}/{cid}"):
         rs = dict(rs, max_cycle=1)     # a real SCF that cannot converge in one iteration, fallback included
-    res = cq_refine.single_point(atoms, p.charge, p.multiplicity, rs, threads=1, scratch_dir=scratch,
+    res = dft.single_point(atoms, p.charge, p.multiplicity, rs, threads=1, scratch_dir=scratch,
                                  solvent=solvent)
     solv = 0.0
     if res.get("converged") and solvent and rs["solvent_model"] == "gfn2-delta":
-        solv = cq_refine.xtb_solvation_hartree(atoms, es)
+        solv = dft.xtb_solvation_hartree(atoms, es)
     rec = {"key": key, "conformer": cid, **res, "solvation_hartree": solv,
            "status": "ok" if res.get("converged") else "failed", "reason": res.get("message", "")}
     fileio.write_json(out_json, rec)
@@ -44,6 +44,7 @@ def _refine_one(job):
 def run(cfg, plan, name, threads=1):
     import pandas as pd
 
+    from .. import dft
     from .. import ensemble as cq_ens
     from .. import refine as cq_refine
     settings = cfg["settings"]
@@ -89,7 +90,7 @@ def run(cfg, plan, name, threads=1):
                          "status": r["status"] if r else "not-selected", "reason": r.get("reason", "") if r else
                          f"more than {rs['window_kcal']:g} kcal/mol above the lowest and not the lowest of a chair family"})
     fileio.write_csv(folder / "refine.csv", tables.frame(rows, tables.refine(settings)))
-    fileio.write_json(folder / "refine.json", {"molecule": name, "settings": rs, "versions": cq_refine.versions(),
+    fileio.write_json(folder / "refine.json", {"molecule": name, "settings": rs, "versions": dft.versions(),
                                                "dft_seconds": float(sum(r.get("seconds") or 0 for r in recs.values()))})
 
 

@@ -13,8 +13,7 @@ def _refined(settings: dict) -> bool:
 
 
 def seeds(settings=None) -> list[str]:
-    from ..seeds import TABLE_COLUMNS
-    return list(TABLE_COLUMNS)
+    return ["seed", "ring_form", "q", "theta", "phi", "orientation", "ff_energy_kcal", "status", "template", "reason"]
 
 
 def minima(settings=None) -> list[str]:

@@ -52,7 +52,7 @@ def _freq_one(job):
     atomically (the record last, as the completion mark)."""
     from .. import optimize as cq_opt
     from .. import ring as cq_ring
-    from .. import thermo as cq_thermo
+    from .. import symmetry as cq_symmetry
     from .. import vibrations as cq_vib
     from .minima import verify
     name, cid, key, es, opt, th, xyz_in, energy, cache_dir, out_json, out_xyz, out_vib = job
@@ -87,7 +87,7 @@ def _freq_one(job):
         ok_b, why_b, ok_s, why_s = verify(p.mol, final)
         if not (ok_b and ok_s):
             status, reason = "failed", "; ".join(x for x in (why_b if not ok_b else "", why_s if not ok_s else "") if x)
-        sigma, pg = cq_thermo.symmetry_number(final)
+        sigma, pg = cq_symmetry.symmetry_number(final)
         rec["symmetry_number"], rec["point_group"] = int(sigma), pg
         rec["measured"] = cq_ring.measure(final.positions, p.ring, p.substituents)
         write_vibrations(out_vib, final, proof.hessian)
