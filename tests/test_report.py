@@ -656,3 +656,13 @@ def test_summary_rows_in_memory_are_used_and_summary_csv_is_not_read(run_folder,
     assert "Calibrated value: 1.70 kcal/mol, 95 % interval 1.35 to 2.05 kcal/mol." in _article(text, "methyl-chx")
     # without rows the file is read, as before
     assert "stale file from an earlier run" in build_report(out, RUN_INFO)
+
+
+def test_a_temperature_without_calibration_says_why(run_folder):
+    """The calibration is fitted at one temperature and applied only there: a value at another temperature
+    is shown uncalibrated with that reason, not as if no calibration existed."""
+    from chairqm.report import build_report
+    assert any(abs(t - 298.15) > 0.5 for t in TEMPS)
+    text = build_report(run_folder, dict(copy.deepcopy(RUN_INFO), calibration_temperature_k=298.15))
+    assert "none at 350 K; the calibration was fitted at 298.15 K and is applied only there" in text
+    assert "none at 298.15 K" not in text

@@ -137,6 +137,9 @@ def run(cfg, plan, name=None, threads=1):
     summary["flag"] = summary["flag"].map(lambda v: "true" if bool(v) else "false")
     fileio.write_csv("summary.csv", summary)
     prov = provenance(cfg, plan, note)
+    from .. import calibration as cq_cal
+    cal = cq_cal.load_matching(settings)
+    prov["calibration_temperature_k"] = None if cal is None else float(cal.temperature_k)
     fileio.write_json("provenance.json", prov)
     write_db(plan)
     cq_report.write_report(Path("."), prov, summary_rows=summary.to_dict("records"))
