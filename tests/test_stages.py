@@ -230,3 +230,12 @@ def test_every_chair_gap_is_given_on_one_axis():
     assert on_axis(1.2, "s1=axial", "s1=equatorial") == -1.2
     assert on_axis(0.0, "s1=axial", "s1=equatorial") == 0.0 and str(on_axis(0.0, "a", "b")) == "0.0"
     assert on_axis(None, "s1=axial", "s1=equatorial") is None
+
+
+def test_no_stage_opens_another_stages_work_folder():
+    """work/ holds a stage's private per-conformer records; the stages after it read declared outputs."""
+    own = {"minima": {"opt"}, "thermo": {"thermo", "freq"}, "refine": {"refine"}}
+    for s in stages.STAGES:
+        src = Path(s.module.__file__).read_text()
+        used = set(re.findall(r'"work"\s*/\s*"(\w+)"', src)) | set(re.findall(r"work/(\w+)", src))
+        assert used <= own.get(s.name, set()), (s.name, used)
