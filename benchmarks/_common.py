@@ -106,9 +106,7 @@ def optimise_and_check(p, positions, optimizer: str = "auto", settings: dict | N
            "ring_form": "", "orientation": "", "reason": res.reason}
     if res.status == "failed":
         return out
-    ref_pairs = {tuple(sorted((b.GetBeginAtomIdx(), b.GetEndAtomIdx()))) for b in mol.GetBonds()}
-    ok_b, why_b = cq_opt.check_bonds(ref_pairs, res.atoms)
-    ok_s, why_s = cq_opt.check_stereo(mol, res.atoms.positions)
+    ok_b, why_b, ok_s, why_s = cq_opt.check_structure(mol, res.atoms)
     if not ok_b:
         out["status"], out["reason"] = "failed", f"bonds changed: {why_b}"
     elif not ok_s:

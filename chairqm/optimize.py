@@ -462,3 +462,12 @@ def check_stereo(mol, positions) -> tuple[bool, str]:
     elif not problems and not db_problems:
         problems = ["isomeric SMILES from 3D differs from the input's"]
     return False, "; ".join(problems + db_problems)
+
+
+def check_structure(mol, atoms) -> tuple[bool, str, bool, str]:
+    """(bonds kept, why not, stereo kept, why not) of geometry `atoms` against molecule `mol`: the two
+    checks every optimised or re-optimised conformer must pass (:func:`check_bonds`, :func:`check_stereo`)."""
+    ref_pairs = {tuple(sorted((b.GetBeginAtomIdx(), b.GetEndAtomIdx()))) for b in mol.GetBonds()}
+    ok_b, why_b = check_bonds(ref_pairs, atoms)
+    ok_s, why_s = check_stereo(mol, atoms.positions)
+    return ok_b, why_b, ok_s, why_s

@@ -32,7 +32,7 @@ def _optimise_one(job):
     if fault("bond", f"{name}/{seed}"):
         geom = stretch_a_bond(geom)
     if status != "failed":
-        ok_b, why_b, ok_s, why_s = verify(mol, geom)
+        ok_b, why_b, ok_s, why_s = cq_opt.check_structure(mol, geom)
         rec["checks"] = {"bonds": ok_b, "bonds_reason": why_b, "stereo": ok_s, "stereo_reason": why_s}
         if not ok_b:
             status, reasons = "failed", reasons + [f"bonds changed: {why_b}"]
@@ -47,15 +47,6 @@ def _optimise_one(job):
     write_xyz(out_xyz, geom, {"seed": seed, "energy_hartree": rec["energy_hartree"]})
     fileio.write_json(out_json, rec)
     return rec
-
-
-def verify(mol, atoms):
-    """(bonds ok, why, stereo ok, why): the geometry keeps the molecule's bonds and stereocentres."""
-    from .. import optimize as cq_opt
-    ref_pairs = {tuple(sorted((b.GetBeginAtomIdx(), b.GetEndAtomIdx()))) for b in mol.GetBonds()}
-    ok_b, why_b = cq_opt.check_bonds(ref_pairs, atoms)
-    ok_s, why_s = cq_opt.check_stereo(mol, atoms.positions)
-    return ok_b, why_b, ok_s, why_s
 
 
 def run(cfg, plan, name, threads=1):

@@ -54,7 +54,6 @@ def _freq_one(job):
     from .. import ring as cq_ring
     from .. import symmetry as cq_symmetry
     from .. import vibrations as cq_vib
-    from .minima import verify
     name, cid, key, es, opt, th, xyz_in, energy, cache_dir, out_json, out_xyz, out_vib = job
     p = load_molecule(name)
     atoms = read_xyz(xyz_in)
@@ -84,7 +83,7 @@ def _freq_one(job):
     reason = "" if status == "ok" else proof.history[-1] if proof.history else proof.status
     final = proof.atoms
     if status != "failed":
-        ok_b, why_b, ok_s, why_s = verify(p.mol, final)
+        ok_b, why_b, ok_s, why_s = cq_opt.check_structure(p.mol, final)
         if not (ok_b and ok_s):
             status, reason = "failed", "; ".join(x for x in (why_b if not ok_b else "", why_s if not ok_s else "") if x)
         sigma, pg = cq_symmetry.symmetry_number(final)
