@@ -1,13 +1,8 @@
-# chairqm workflow. Started by `chairqm run`, which passes the configuration path as
-#   --config chairqm_config=/abs/path.yaml   and runs in the output folder (--directory OUT).
-# The shared code is in workflows/rules/common.smk; each stage of the registry (chairqm.stages.STAGES)
-# has its rule file workflows/rules/STAGE.smk, named like its module chairqm/stages/STAGE.py.
+# For people who run Snakemake directly from a source checkout:
+#   snakemake --cores 2 --directory OUT --config chairqm_config=/abs/path.yaml
+# The workflow itself ships inside the package (chairqm/workflow/Snakefile); `chairqm run` uses that
+# copy, wherever chairqm is installed. From an installed chairqm without the source tree:
+#   snakemake --snakefile "$(python -c 'import chairqm.workflow as w; print(w.snakefile())')" ...
 
 
-include: "workflows/rules/common.smk"
-include: "workflows/rules/targets.smk"
-
-
-for _stage in cq_stages.names():
-
-    include: f"workflows/rules/{_stage}.smk"
+include: "chairqm/workflow/Snakefile"

@@ -16,15 +16,34 @@ EXIT_INPUT = 2
 
 
 def project_root() -> Path:
+    """The source checkout this package sits in (its configs/ exist only there, not in a wheel install)."""
     return Path(__file__).resolve().parent.parent
 
 
 def snakefile() -> Path:
-    sf = project_root() / "Snakefile"
-    if not sf.is_file():
-        raise ChairqmError(f"the workflow (Snakefile) was not found next to the package at {sf.parent}: "
-                           "install chairqm from its source folder with `pip install -e .`")
-    return sf
+    """The packaged workflow (chairqm/workflow/Snakefile, found through importlib.resources)."""
+    from . import workflow
+    return workflow.snakefile()
+
+
+def resolve_profiles(extra) -> list[str]:
+    """Snakemake arguments with every `--profile X` that names a packaged profile (`laptop`, `slurm`,
+    or the source tree's old path `workflows/profiles/NAME`) and is not an existing folder replaced by
+    the packaged profile's folder; anything else is passed on unchanged."""
+    from . import workflow
+    out = list(extra)
+    for i, arg in enumerate(out):
+        value, prefix = None, ""
+        if arg == "--profile" and i + 1 < len(out):
+            value, idx = out[i + 1], i + 1
+        elif arg.startswith("--profile="):
+            value, idx, prefix = arg.split("=", 1)[1], i, "--profile="
+        if value is None or Path(value).is_dir():
+            continue
+        name = Path(value).name
+        if name in workflow.profile_names() and (Path(value).parent.as_posix() in ("", ".", "workflows/profiles")):
+            out[idx] = prefix + str(workflow.profile(name))
+    return out
 
 
 def available_stages() -> list[str]:
@@ -117,6 +136,7 @@ def default_out(config_path) -> Path:
 
 def run_workflow(config_path, out, cores=2, until=None, extra=()) -> int:
     cfg, plan = _prepare(config_path)
+    extra = resolve_profiles(extra)
     stages = available_stages()
     if until is not None and until not in stages:
         raise ChairqmError(f"--until {until}: the stages are {', '.join(stages)}")
@@ -193,7 +213,12 @@ def _finish(out: Path, plan, until) -> int:
     return 0
 
 
+def _with_profile(args, extra) -> list[str]:
+    return (["--profile", args.profile] if getattr(args, "profile", None) else []) + list(extra)
+
+
 def cmd_run(args, extra) -> int:
+    extra = _with_profile(args, extra)
     out = args.out or default_out(args.config)
     return run_workflow(args.config, out, cores=args.cores, until=args.until, extra=extra)
 
@@ -203,6 +228,7 @@ def cmd_avalue(args, extra) -> int:
     import yaml
     from . import additivity, avalues
     from .plan import _slug
+    extra = _with_profile(args, extra)
     frag = avalues.canonical_fragment(args.fragment)
     smiles = additivity.reference_smiles(frag)
     name = _slug(frag).replace("ref-", "avalue-", 1)
@@ -255,10 +281,20 @@ def cmd_avalue(args, extra) -> int:
     return code
 
 
+def default_reference_config() -> Path:
+    """configs/reference.yaml of the source checkout; a wheel install has no configs/ folder."""
+    path = project_root() / "configs" / "reference.yaml"
+    if not path.is_file():
+        raise ChairqmError("no reference configuration given and no source checkout's configs/reference.yaml "
+                           "next to this installation: run `chairqm calibrate PATH/TO/reference.yaml`")
+    return path
+
+
 def cmd_calibrate(args, extra) -> int:
     """Run the reference set, fit computed against experimental A-values, store the calibration."""
     from . import calibration as cq_cal
-    config = args.config
+    extra = _with_profile(args, extra)
+    config = args.config or default_reference_config()
     out = Path(args.out or (default_out(config) if args.refine is None
                             else Path(str(default_out(config)) + "-refined")))
     if args.refine is not None:
@@ -319,6 +355,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--out", help="output folder (default results/<config name>)")
     r.add_argument("--cores", type=int, default=2)
     r.add_argument("--until", help="stop after this stage: " + ", ".join(available_stages()))
+    r.add_argument("--profile", help="Snakemake profile: a packaged one by name (laptop, slurm) or a profile folder")
     a = sub.add_parser("avalue", help="compute the A-value of a group, e.g. chairqm avalue \"[*]C1CC1\"")
     a.add_argument("fragment", help="the group as SMILES with one attachment point [*]")
     a.add_argument("--out", help="output folder (default results/avalue-<group>)")
@@ -329,10 +366,13 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--solvent", help="MODEL:NAME, e.g. alpb:water (default gas phase)")
     a.add_argument("--engine", choices=["tblite", "xtb-python"], help=f"default {defaults['engine']}")
     a.add_argument("--method", choices=["GFN2-xTB", "GFN1-xTB"], help=f"default {defaults['method']}")
+    a.add_argument("--profile", help="Snakemake profile: a packaged one by name (laptop, slurm) or a profile folder")
     k = sub.add_parser("calibrate", help="compute the reference set and fit computed against experimental A-values")
-    k.add_argument("config", nargs="?", default=str(project_root() / "configs" / "reference.yaml"))
+    k.add_argument("config", nargs="?", default=None,
+                   help="reference configuration (default configs/reference.yaml of the source checkout)")
     k.add_argument("--out", help="output folder (default results/<config name>)")
     k.add_argument("--cores", type=int, default=2)
+    k.add_argument("--profile", help="Snakemake profile: a packaged one by name (laptop, slurm) or a profile folder")
     k.add_argument("--save", help="calibration list file to add the result to (default OUT/calibration.json)")
     k.add_argument("--refine", nargs="?", const="{}", default=None, metavar="SETTINGS",
                    help="calibrate DFT-refined values: add settings.refine to the configuration (no value: the "

@@ -2,7 +2,7 @@
 
 RESULT_SETTINGS is the one table of result-relevant settings. It feeds
 
-- the Snakemake rule fingerprints (``workflows/rules/common.smk``: a change reruns the stage's jobs),
+- the Snakemake rule fingerprints (``chairqm/workflow/rules/common.smk``: a change reruns the stage's jobs),
 - the per-conformer record keys (``chairqm.stages.records``: a change recomputes a conformer instead of
   reusing its record),
 - the calibration key (``chairqm.calibration.settings_key``: a calibration is applied only to runs made

@@ -1,4 +1,4 @@
-"""The Snakemake profiles under workflows/profiles/: they parse, use only real Snakemake options, and
+"""The Snakemake profiles shipped in chairqm/workflow/profiles/: they parse, use only real Snakemake options, and
 give a valid plan (dry run) for the demo configuration — no cluster and no SLURM plugin needed.
 
 The SLURM profile names `executor: slurm`, which Snakemake accepts only with the optional plugin
@@ -24,7 +24,7 @@ from chairqm import config as cq_config
 from chairqm.plan import make_plan
 
 ROOT = Path(__file__).resolve().parent.parent
-PROFILES = ROOT / "workflows" / "profiles"
+PROFILES = ROOT / "chairqm" / "workflow" / "profiles"
 DEMO = ROOT / "configs" / "demo.yaml"
 STAGE_RULES = ["intake", "seeds", "minima", "thermo", "refine", "ensemble", "report"]
 

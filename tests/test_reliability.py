@@ -681,7 +681,7 @@ def test_run_refuses_an_unparseable_molecule_before_computing(tmp_path, capsys):
 
 def test_molecules_sharing_a_group_do_not_wait_for_each_other():
     """The ensemble job of a molecule waits for the reference rings of its groups
-    (workflows/rules/ensemble.smk, Plan.references_for). Two monosubstituted cyclohexanes with the same
+    (chairqm/workflow/rules/ensemble.smk, Plan.references_for). Two monosubstituted cyclohexanes with the same
     group (e.g. methylcyclohexane under two names) must not become each other's reference: the cycle
     makes Snakemake refuse the whole run (CyclicGraphException) before any molecule is computed."""
     from chairqm import config as cq_config

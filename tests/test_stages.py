@@ -29,7 +29,7 @@ def test_every_stage_has_a_module_and_a_rule_file():
     for s in stages.STAGES:
         assert callable(s.module.run), s.name
         assert callable(s.module.write_empty), s.name
-        rule_file = ROOT / "workflows" / "rules" / f"{s.name}.smk"
+        rule_file = ROOT / "chairqm" / "workflow" / "rules" / f"{s.name}.smk"
         assert re.search(rf"^rule {s.name}:", rule_file.read_text(), re.M), rule_file
 
 

@@ -2,7 +2,7 @@
 
 `python -m chairqm.stages STAGE --config C [--molecule M]` runs one stage in the run's output folder
 (the runner is ``__main__.py``). Each stage is a module here named like its rule file
-(``workflows/rules/STAGE.smk``) with
+(``chairqm/workflow/rules/STAGE.smk``) with
 
 - ``run(cfg, plan, name, threads)``: read the declared outputs of the stages before it, write its own
   (atomically);
@@ -10,7 +10,7 @@
   written when the stage broke unexpectedly (per-molecule stages only).
 
 Who reads STAGES: the runner (order, failure isolation), the command line (``--until`` choices, retrying a
-failed stage), ``workflows/rules/common.smk`` (each rule's outputs) and ``workflows/rules/targets.smk``
+failed stage), ``chairqm/workflow/rules/common.smk`` (each rule's outputs) and ``chairqm/workflow/rules/targets.smk``
 (the ``until_STAGE`` end points). Adding a stage: a module here with its entry below, and a rule file.
 This module imports nothing heavy, so the command line can read the registry quickly.
 """
