@@ -21,7 +21,7 @@ from .errors import ChairqmError
 RDLogger.DisableLog("rdApp.*")
 
 MAX_Z = 86                      # GFN2-xTB is parametrised for H–Rn (Bannwarth, Ehlert, Grimme, JCTC 2019, 15, 1652)
-RING_ELEMENTS = {"C", "N", "O", "S"}
+RING_ELEMENTS = {"B", "C", "N", "O", "Si", "P", "S", "Ge", "Se"}
 MAX_STEREO_ISOMERS = 16
 
 
@@ -52,6 +52,10 @@ class Perceived:
     note: str = ""
     reference: bool = False
     notes: list[str] = field(default_factory=list)
+    # the other analysable six-membered rings (inside substituents): label r2, r3, ..., ring atoms in ring
+    # order, and the bond leading from the ring towards the analysed ring (link_atom in this ring, link_to
+    # its neighbour on that path), whose axial/equatorial position on this ring names its chair
+    other_rings: list[dict] = field(default_factory=list)
 
     @property
     def mol(self) -> Chem.Mol:
@@ -175,22 +179,39 @@ def _from_file(name: str, path: Path, charge) -> Chem.Mol:
 
 # ---------------------------------------------------------------- perception
 
+def _ring_problem(mol: Chem.Mol, ring) -> str:
+    """Why a six-membered ring cannot be analysed ('' when it can): every ring atom one of RING_ELEMENTS,
+    no aromatic atom, every ring bond single. Exocyclic double bonds (C=O, C=CH2, S=O, P=O) are allowed."""
+    ring = list(ring)
+    for i in ring:
+        a = mol.GetAtomWithIdx(i)
+        if a.GetIsAromatic():
+            return f"ring atom {i} ({a.GetSymbol()}) is aromatic"
+        if a.GetSymbol() not in RING_ELEMENTS:
+            return (f"ring atom {i} is {a.GetSymbol()}; ring atoms may be "
+                    f"{', '.join(sorted(RING_ELEMENTS))}")
+    for k in range(6):
+        b = mol.GetBondBetweenAtoms(ring[k], ring[(k + 1) % 6])
+        if b.GetBondType() != Chem.BondType.SINGLE:
+            return (f"the ring bond {ring[k]}-{ring[(k + 1) % 6]} is {str(b.GetBondType()).lower()}: an "
+                    "endocyclic double bond makes half-chair forms, which chairqm does not build")
+    return ""
+
+
 def saturated_six_rings(mol: Chem.Mol) -> list[list[int]]:
-    """Six-membered rings of C/N/O/S whose atoms are all sp3 (no multiple or aromatic bonds at ring atoms)."""
-    rings = []
-    for ring in mol.GetRingInfo().AtomRings():
-        if len(ring) != 6:
-            continue
-        ok = True
-        for i in ring:
-            a = mol.GetAtomWithIdx(i)
-            if a.GetSymbol() not in RING_ELEMENTS or a.GetIsAromatic():
-                ok = False
-            elif any(b.GetBondType() != Chem.BondType.SINGLE for b in a.GetBonds()):
-                ok = False
-        if ok:
-            rings.append(_order_ring(mol, list(ring)))
-    return sorted(rings)
+    """Every six-membered ring chairqm can analyse (see :func:`_ring_problem`), each in ring order."""
+    return sorted(_order_ring(mol, list(r)) for r in mol.GetRingInfo().AtomRings()
+                  if len(r) == 6 and not _ring_problem(mol, r))
+
+
+def is_trigonal_exocyclic(mol: Chem.Mol, ring_atom: int, first_atom: int) -> bool:
+    """True for an exocyclic double bond at a trigonal ring atom (the O of a ring C=O, the CH2 of a ring
+    C=CH2): it lies in the ring atom's plane, so it has no axial or equatorial position. A double bond at a
+    tetrahedral ring atom (S=O, P=O) does, and stays a substituent."""
+    b = mol.GetBondBetweenAtoms(ring_atom, first_atom)
+    a = mol.GetAtomWithIdx(ring_atom)
+    return (b is not None and b.GetBondType() == Chem.BondType.DOUBLE and a.GetSymbol() in ("B", "C", "N")
+            and a.GetDegree() == 3)
 
 
 def _order_ring(mol, ring):
@@ -334,8 +355,9 @@ def perceive(entry: dict, base_dir: Path | str = ".", settings: dict | None = No
     rings = saturated_six_rings(mol)
     if not rings:
         six = [r for r in mol.GetRingInfo().AtomRings() if len(r) == 6]
-        why = ("its six-membered ring is aromatic or unsaturated" if six else "it has no six-membered ring")
-        raise ChairqmError(f"{name}: no saturated six-membered ring (C, N, O, S ring atoms, all sp3): {why}")
+        why = ("; ".join(_ring_problem(mol, r) for r in six) if six else "it has no six-membered ring")
+        raise ChairqmError(f"{name}: no six-membered ring chairqm can analyse (single ring bonds, ring atoms "
+                           f"{', '.join(sorted(RING_ELEMENTS))}, none aromatic): {why}")
     out = []
     for suffix, iso in _stereo(mol, name, settings.get("enumerate_stereo", False)):
         out.append(_describe(iso, name + suffix, rings, charge, multiplicity, source, raw, entry))
@@ -343,7 +365,7 @@ def perceive(entry: dict, base_dir: Path | str = ".", settings: dict | None = No
 
 
 def _describe(mol, name, rings, charge, multiplicity, source, raw, entry) -> Perceived:
-    ring = _choose_ring(mol, rings)
+    ring = _choose_ring(mol, rings, entry.get("ring"), name)
     ring_set = set(ring)
     subs = []
     for ra in ring:
@@ -354,6 +376,8 @@ def _describe(mol, name, rings, charge, multiplicity, source, raw, entry) -> Per
                 continue
             if nb.GetAtomicNum() == 1 and atom.GetSymbol() != "N":
                 continue
+            if is_trigonal_exocyclic(mol, ra, j):
+                continue                 # C=O, C=CH2: in the ring atom's plane, no axial/equatorial
             group = _group_atoms(mol, ring_set, ra, j)
             if group is None:
                 raise ChairqmError(f"{name}: ring atom {ra} is part of a fused, bridged or spiro ring system, "
@@ -365,6 +389,7 @@ def _describe(mol, name, rings, charge, multiplicity, source, raw, entry) -> Per
     notes = []
     if len(rings) > 1:
         notes.append(f"{len(rings)} saturated six-membered rings; analysing ring {ring}")
+    others = _other_rings(mol, ring, rings)
     return Perceived(
         name=name,
         smiles=Chem.MolToSmiles(Chem.RemoveHs(mol)),
@@ -379,16 +404,55 @@ def _describe(mol, name, rings, charge, multiplicity, source, raw, entry) -> Per
         note=entry.get("note", ""),
         reference=bool(entry.get("reference", False)),
         notes=notes,
+        other_rings=others,
     )
 
 
-def _choose_ring(mol, rings):
-    """The analysed ring: the one carrying most heavy-atom substituents (ties: lowest atom indices)."""
+def _other_rings(mol, ring, rings) -> list[dict]:
+    """The analysable six-membered rings other than the analysed one, each with the bond that leads from
+    it towards the analysed ring (shortest path through the molecular graph)."""
+    out = []
+    for r in rings:
+        if r == ring or set(r) & set(ring):
+            continue
+        best = None
+        for a in r:
+            for b in ring:
+                path = Chem.GetShortestPath(mol, a, b)
+                if path and (best is None or len(path) < len(best)):
+                    best = path
+        out.append({"label": f"r{len(out) + 2}", "atoms": list(r), "link_atom": int(best[0]),
+                    "link_to": int(best[1])})
+    return out
+
+
+def _choose_ring(mol, rings, wanted=None, name="molecule"):
+    """The analysed ring. `wanted` (the entry's `ring:`) names it by six atom indices or a SMARTS matching
+    its six atoms; otherwise the ring carrying most heavy-atom groups wins, ties going to the ring with
+    fewest heteroatoms (a cyclohexane before a piperidine that hangs on it), then to the lowest indices."""
+    if wanted is not None:
+        if isinstance(wanted, str):
+            patt = Chem.MolFromSmarts(wanted)
+            if patt is None:
+                raise ChairqmError(f"{name}: ring: {wanted!r} is not a valid SMARTS")
+            hits = {frozenset(m) for m in mol.GetSubstructMatches(patt)}
+            chosen = [r for r in rings if frozenset(r) in hits or any(frozenset(r) <= h for h in hits)]
+        else:
+            chosen = [r for r in rings if set(r) == {int(i) for i in wanted}]
+        if len(chosen) != 1:
+            found = "; ".join(str(r) for r in rings)
+            raise ChairqmError(f"{name}: ring: {wanted!r} matches {len(chosen)} of the analysable six-membered "
+                               f"rings ({found}): give one ring's six atom indices or a SMARTS of it")
+        return chosen[0]
+
     def count(r):
         s = set(r)
         return sum(1 for i in r for nb in mol.GetAtomWithIdx(i).GetNeighbors()
                    if nb.GetIdx() not in s and nb.GetAtomicNum() > 1)
-    return sorted(rings, key=lambda r: (-count(r), r))[0]
+
+    def hetero(r):
+        return sum(1 for i in r if mol.GetAtomWithIdx(i).GetSymbol() != "C")
+    return sorted(rings, key=lambda r: (-count(r), hetero(r), r))[0]
 
 
 def substituents_table(p: Perceived):

@@ -70,6 +70,13 @@ def make_plan(cfg: dict) -> Plan:
     return Plan(mols, problems)
 
 
+def _on_ring_carbon(m):
+    """The groups a cyclohexane A-value can describe: singly bonded to a ring carbon (a group on a ring
+    heteroatom, or S=O / P=O, has no cyclohexane reference)."""
+    elements = dict(zip(m.ring, m.ring_elements))
+    return [s for s in m.substituents if elements.get(s.ring_atom) == "C" and not s.fragment.startswith("[*]=")]
+
+
 def _reference_molecules(mols, settings, problems):
     try:
         from . import additivity
@@ -78,7 +85,7 @@ def _reference_molecules(mols, settings, problems):
     have = {m.substituents[0].fragment for m in mols if len(m.substituents) == 1
             and m.ring_elements == ["C"] * 6}
     out = []
-    for frag in sorted({f for m in mols for f in additivity.needs_reference(m.substituents)}):
+    for frag in sorted({f for m in mols for f in additivity.needs_reference(_on_ring_carbon(m))}):
         if frag in have or frag == "[*][H]":
             continue
         try:

@@ -296,15 +296,31 @@ def _sub_key(sid: str):
     return (int(digits) if digits else 10 ** 9, s)
 
 
-def measure(positions, ring, substituents) -> dict:
-    """Ring form, Q, theta, phi and the orientation string ('s1=axial;s2=equatorial') of one structure."""
+def measure(positions, ring, substituents, other_rings=()) -> dict:
+    """Ring form, Q, theta, phi and the orientation string ('s1=axial;s2=equatorial') of one structure;
+    with `other_rings` (chairqm.molecule.Perceived.other_rings) also 'other_rings': each other ring's form
+    and the position on it of the bond towards the analysed ring ('r2=chair:equatorial'), '' for none."""
     x = np.asarray(positions, dtype=float)
     ring = list(ring)
     p = cremer_pople(x[ring])
     form = classify(p)
     subs = sorted(substituents, key=lambda s: _sub_key(s.id))
     text = ";".join(f"{s.id}={orientation(x, ring, s.ring_atom, s.first_atom, form)}" for s in subs)
-    return {"ring_form": form, "q": p.q, "theta": p.theta, "phi": p.phi, "orientation": text}
+    out = {"ring_form": form, "q": p.q, "theta": p.theta, "phi": p.phi, "orientation": text}
+    if other_rings:
+        out["other_rings"] = other_ring_states(x, other_rings)
+    return out
+
+
+def other_ring_states(positions, other_rings) -> str:
+    """'r2=chair:equatorial;r3=twist-boat:pseudo-axial': per other ring its form (Cremer–Pople, as for the
+    analysed ring) and the orientation on it of its link towards the analysed ring."""
+    x = np.asarray(positions, dtype=float)
+    parts = []
+    for o in other_rings:
+        form = classify(cremer_pople(x[list(o["atoms"])]))
+        parts.append(f"{o['label']}={form}:{orientation(x, list(o['atoms']), o['link_atom'], o['link_to'], form)}")
+    return ";".join(parts)
 
 
 def ring_torsions(coords) -> np.ndarray:

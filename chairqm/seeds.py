@@ -74,6 +74,7 @@ CHAIR_Q = 0.55          # Å, template amplitude of the chairs (MMFF94 cyclohexa
 TWIST_Q = 0.72          # Å, template amplitude of the twist-boats (MMFF94 cyclohexane twist-boat: 0.717 Å)
 RING_TORSION_TOL = 10.0     # deg, flat-bottom half-width of the ring-torsion restraints
 RING_TORSION_K = 1.0e3      # force constant of those restraints (RDKit units, kcal/mol per rad^2)
+MAX_OTHER_RING_SETS = 8     # combinations of the other rings' chairs seeded per ring form (2^3: three rings)
 SKELETON_TOL = 0.02         # Å, max deviation for two skeletons to be symmetry-equivalent
 # numpy's results can differ in the last bits between processes (memory alignment picks different SIMD
 # paths); coordinates are rounded at each hand-over so that the same input gives the same bytes.
@@ -114,6 +115,7 @@ class Seed:
     positions: np.ndarray | None = None
     equivalent_to: str | None = None      # for merged seeds: the kept seed it duplicates
     forcefield: str | None = None         # 'MMFF94', 'UFF' or None (unrelaxed)
+    other_rings: str = ""                 # the other rings' forms ('r2=chair:equatorial'), see ring.measure
 
     @property
     def kept(self) -> bool:
@@ -163,9 +165,10 @@ class _Context:
     maps: list = field(default_factory=list)    # (mapping array over all atoms' heavy part, improper)
     forcefield: str | None = None
     props: object = None
+    others: list = field(default_factory=list)  # chairqm.molecule.Perceived.other_rings
 
 
-def _prepare(mol, ring, substituents, settings) -> _Context:
+def _prepare(mol, ring, substituents, settings, other_rings=()) -> _Context:
     if mol is None or mol.GetNumAtoms() == 0:
         raise ChairqmError("no molecule to seed")
     if any(a.GetNumImplicitHs() for a in mol.GetAtoms()):
@@ -197,7 +200,8 @@ def _prepare(mol, ring, substituents, settings) -> _Context:
     hydrogens = {i: [n.GetIdx() for n in work.GetAtomWithIdx(i).GetNeighbors() if n.GetAtomicNum() == 1]
                  for i in heavy}
     ctx = _Context(mol=work, ring=ring, subs=list(substituents), settings=settings, ranks=ranks, exo=exo,
-                   ref_tags=ref_tags, ref_bonds=ref_bonds, heavy=heavy, hydrogens=hydrogens)
+                   ref_tags=ref_tags, ref_bonds=ref_bonds, heavy=heavy, hydrogens=hydrogens,
+                   others=[dict(o) for o in other_rings])
     ctx.maps = symmetry.ring_automorphisms(work, ring)
     if AllChem.MMFFHasAllMoleculeParams(work):
         ctx.forcefield = "MMFF94"
@@ -281,11 +285,12 @@ def _forcefield(ctx, conf_id, targets=None):
     if ff is None:
         return None
     if targets is not None:
-        r = ctx.ring
-        for j in range(6):
-            t = float(targets[j])
-            add(r[j], r[(j + 1) % 6], r[(j + 2) % 6], r[(j + 3) % 6], False,
-                t - RING_TORSION_TOL, t + RING_TORSION_TOL, RING_TORSION_K)
+        pairs = [(ctx.ring, targets)] if isinstance(targets, np.ndarray) else targets
+        for r, torsions in pairs:
+            for j in range(6):
+                t = float(torsions[j])
+                add(r[j], r[(j + 1) % 6], r[(j + 2) % 6], r[(j + 3) % 6], False,
+                    t - RING_TORSION_TOL, t + RING_TORSION_TOL, RING_TORSION_K)
     ff.Initialize()
     return ff
 
@@ -335,9 +340,10 @@ def _embed(ctx, pos, seed):
 
 
 def _measure_into(ctx, seed: Seed, X, intended_form):
-    meas = ringgeo.measure(X, ctx.ring, ctx.subs)
+    meas = ringgeo.measure(X, ctx.ring, ctx.subs, ctx.others)
     seed.ring_form, seed.q, seed.theta, seed.phi = meas["ring_form"], meas["q"], meas["theta"], meas["phi"]
     seed.orientation = meas["orientation"]
+    seed.other_rings = meas.get("other_rings", "")
     seed.positions = X
     notes = []
     if seed.ring_form != intended_form:
@@ -363,17 +369,36 @@ def _frame(ctx, X, ring_xyz):
     return np.round(T(X), DECIMALS_OUT) + 0.0
 
 
+def _other_ring_chairs(ctx) -> list:
+    """One restraint set per combination of the other rings' two chairs (at most MAX_OTHER_RING_SETS):
+    [(ring atoms, six target torsions), ...]; [[]] when the molecule has no other ring. A ring inside a
+    substituent is thereby sampled in both chairs (its link to the analysed ring equatorial in one, axial
+    in the other) instead of keeping whatever form the embedding gave it."""
+    per_ring = []
+    for o in ctx.others:
+        r = [int(a) for a in o["atoms"]]
+        lengths = [_bond_length(ctx.mol, r[k], r[(k + 1) % 6]) for k in range(6)]
+        chairs = [t for t in TEMPLATES if t.form == "chair"]
+        per_ring.append([(r, np.round(ringgeo.ring_torsions(ringgeo.ring_from_pucker(t.q, t.theta, t.phi, lengths)), 4))
+                         for t in chairs])
+    if not per_ring:
+        return [[]]
+    return [list(c) for c in itertools.product(*per_ring)][:MAX_OTHER_RING_SETS]
+
+
 # ---- the public entry points ------------------------------------------------------------------------
-def build_seeds(mol, ring, substituents, settings=None) -> list[Seed]:
+def build_seeds(mol, ring, substituents, settings=None, other_rings=()) -> list[Seed]:
     """Every seed of one molecule — kept, merged, screened and failed — in a fixed order.
 
     `mol`: RDKit Mol with explicit H and stereo; `ring`: six atom indices in ring order; `substituents`:
     objects with id, ring_atom, first_atom, atoms (see chairqm.molecule.Substituent); `settings`: the
-    seeds block (see DEFAULTS). Positions are in `mol` atom order, Å, in the template frame (ring
-    centroid at the origin, mean plane ~ xy).
+    seeds block (see DEFAULTS); `other_rings`: the molecule's other six-membered rings
+    (chairqm.molecule.Perceived.other_rings), each seeded in both chairs. Positions are in `mol` atom
+    order, Å, in the template frame (ring centroid at the origin, mean plane ~ xy).
     """
     settings = check_settings(settings)
-    ctx = _prepare(mol, ring, substituents, settings)
+    ctx = _prepare(mol, ring, substituents, settings, other_rings)
+    other_sets = _other_ring_chairs(ctx)
     seed0 = settings["random_seed"]
     free, fixed = _choices(ctx)
     combos = list(itertools.product((0, 1), repeat=len(free)))
@@ -453,29 +478,35 @@ def build_seeds(mol, ring, substituents, settings=None) -> list[Seed]:
             out.append(seed)
             continue
         targets = np.round(ringgeo.ring_torsions(X), 4)
-        relax = functools.partial(_relax_into, ctx, targets=targets, ring_xyz=X, form=tpl.form)
-        notes, mismatch = relax(seed, Xb)
-        Xr = seed.positions
-        if mismatch:
-            seed.status = "failed"
-            seed.reason = "; ".join([f"stereo from 3D differs from the input at {', '.join(mismatch)}"] + notes)
-            out.append(seed)
-            continue
-        if merged_with is not None:
-            kname, improper = merged_with
-            seed.status = "merged"
-            seed.equivalent_to = kname
-            how = "mirror image" if improper else "rotation and atom permutation"
-            seed.reason = "; ".join([f"symmetry-equivalent of {kname} ({how})"] + notes)
-            out.append(seed)
-            continue
-        kept_skeletons.append((name, tpl.form, S))
-        if not rotors:
-            seed.reason = "; ".join(notes)
-            out.append(seed)
-            continue
-        out.extend(rotamers.enumerate_rotamers(ctx.mol, seed, Xr, rotors, settings, relax, same_rotamer,
-                                               DECIMALS_START))
+        built = False
+        for io, extra in enumerate(other_sets if merged_with is None else other_sets[:1]):
+            s_io = seed if io == 0 else Seed(name=f"{name}-o{io + 1}", template=tpl.name, forcefield=ctx.forcefield)
+            relax = functools.partial(_relax_into, ctx, targets=[(ctx.ring, targets)] + extra, ring_xyz=X,
+                                      form=tpl.form)
+            notes, mismatch = relax(s_io, Xb)
+            Xr = s_io.positions
+            if mismatch:
+                s_io.status = "failed"
+                s_io.reason = "; ".join([f"stereo from 3D differs from the input at {', '.join(mismatch)}"] + notes)
+                out.append(s_io)
+                continue
+            if merged_with is not None:
+                kname, improper = merged_with
+                s_io.status = "merged"
+                s_io.equivalent_to = kname
+                how = "mirror image" if improper else "rotation and atom permutation"
+                s_io.reason = "; ".join([f"symmetry-equivalent of {kname} ({how})"] + notes)
+                out.append(s_io)
+                continue
+            built = True
+            if not rotors:
+                s_io.reason = "; ".join(notes)
+                out.append(s_io)
+                continue
+            out.extend(rotamers.enumerate_rotamers(ctx.mol, s_io, Xr, rotors, settings, relax, same_rotamer,
+                                                   DECIMALS_START))
+        if built:
+            kept_skeletons.append((name, tpl.form, S))
 
     for tpl in skipped:
         out.append(Seed(name=tpl.name, template=tpl.name, status="screened",

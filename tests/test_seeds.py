@@ -352,7 +352,7 @@ def test_write_seeds_table_and_xyz(tmp_path):
     mol, ring, subs, seeds = run("CC1CCCCC1")
     df = seed_stage.write_seeds(seeds, tmp_path, mol)
     assert list(df.columns) == ["seed", "ring_form", "q", "theta", "phi", "orientation", "ff_energy_kcal",
-                                "status", "template", "reason"]
+                                "status", "template", "reason", "other_rings"]
     assert len(df) == len(seeds)
     files = sorted(p.stem for p in tmp_path.glob("*.xyz"))
     assert files == sorted(s.name for s in seeds if s.status == "ok")

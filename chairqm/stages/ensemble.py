@@ -39,7 +39,8 @@ class Conformer(dict):
 
     def attach(self, folder: Path, th: dict, multiplicity: int):
         self["atoms"] = read_xyz(folder / self["geometry"])
-        self._vib = folder / self["vibrations"] if self.get("vibrations") else None
+        vib = self.get("vibrations") or self.get("thermal_correction_vibrations")   # the latter: borrowed G − E
+        self._vib = folder / vib if vib else None
         self._th, self._mult, self._g = th, multiplicity, {}
         return self
 
@@ -208,7 +209,9 @@ def run(cfg, plan, name, threads=1):
                  "g_hartree": c.g(t, refined=False), "g_rel_kcal": g_rel, "population": pop,
                  "n_imaginary": c["n_imaginary"], "status": c["status"],
                  "degeneracy": c["degeneracy"], "symmetry_number": c.get("symmetry_number"),
-                 "reason": c["reason"]}
+                 "reason": c["reason"], "other_rings": c.get("other_rings", ""),
+                 "frequency_checked": c.get("frequency_checked", True),
+                 "thermal_correction_from": c.get("thermal_correction_from")}
             if requested:
                 r["energy_refined_hartree"] = c.get("energy_refined_hartree")
                 r["g_refined_hartree"] = c.g(t) if "refined_g" in c else None

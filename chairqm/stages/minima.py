@@ -38,7 +38,7 @@ def _optimise_one(job):
             status, reasons = "failed", reasons + [f"bonds changed: {why_b}"]
         if not ok_s:
             status, reasons = "failed", reasons + [f"stereo changed: {why_s}"]
-        rec["measured"] = cq_ring.measure(geom.positions, p.ring, p.substituents)
+        rec["measured"] = cq_ring.measure(geom.positions, p.ring, p.substituents, p.other_rings)
     else:
         rec["checks"] = {}
         rec["measured"] = None
@@ -116,7 +116,8 @@ def run(cfg, plan, name, threads=1):
                      "energy_hartree": r["energy_hartree"], "gradient_calls": r["gradient_calls"],
                      "status": status, "reason": reason, "seed_ring_form": srow["ring_form"],
                      "seed_orientation": srow["orientation"], "steps": r["steps"],
-                     "fmax_ev_per_a": r["fmax_final"], "engine_seconds": r["engine_seconds"]})
+                     "fmax_ev_per_a": r["fmax_final"], "engine_seconds": r["engine_seconds"],
+                     "other_rings": meas.get("other_rings", "")})
     fileio.write_json(folder / "minima.json", {
         "molecule": name, "engine": es, "optimize": opt, "conformers": conformers,
         "engine_seconds": float(sum(recs[s]["engine_seconds"] for s in kept["seed"])),

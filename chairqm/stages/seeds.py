@@ -17,7 +17,7 @@ def run(cfg, plan, name, threads=1):
     p = load_molecule(name)
     folder = Path(name)
     (folder / "seeds").mkdir(parents=True, exist_ok=True)
-    found = cq_seeds.build_seeds(p.mol, p.ring, p.substituents, cfg["settings"]["seeds"])
+    found = cq_seeds.build_seeds(p.mol, p.ring, p.substituents, cfg["settings"]["seeds"], p.other_rings)
     fileio.write_csv(folder / "seeds.csv", write_seeds(found, folder / "seeds", p.mol))
 
 
@@ -31,7 +31,8 @@ def seeds_table(seeds):
     rows = [{"seed": s.name, "ring_form": s.ring_form, "q": r(s.q, 4), "theta": r(s.theta, 2),
              "phi": None if s.phi is None else r(s.phi, 2) % 360.0, "orientation": s.orientation,
              "ff_energy_kcal": r(s.ff_energy_kcal, 4),
-             "status": s.status, "template": s.template, "reason": s.reason} for s in seeds]
+             "status": s.status, "template": s.template, "reason": s.reason, "other_rings": s.other_rings}
+            for s in seeds]
     return pd.DataFrame(rows, columns=tables.seeds())
 
 

@@ -13,19 +13,21 @@ def _refined(settings: dict) -> bool:
 
 
 def seeds(settings=None) -> list[str]:
-    return ["seed", "ring_form", "q", "theta", "phi", "orientation", "ff_energy_kcal", "status", "template", "reason"]
+    return ["seed", "ring_form", "q", "theta", "phi", "orientation", "ff_energy_kcal", "status", "template", "reason",
+            "other_rings"]
 
 
 def minima(settings=None) -> list[str]:
     return ["conformer", "seed", "ring_form", "q", "theta", "phi", "orientation", "energy_hartree",
             "gradient_calls", "status", "reason", "seed_ring_form", "seed_orientation", "steps",
-            "fmax_ev_per_a", "engine_seconds"]
+            "fmax_ev_per_a", "engine_seconds", "other_rings"]
 
 
 def thermo(settings=None) -> list[str]:
     return ["conformer", "temperature_k", "zpe_hartree", "h_hartree", "s_hartree_per_k", "g_hartree",
             "symmetry_number", "degeneracy", "lowest_frequency_cm1", "n_imaginary", "status",
-            "energy_hartree", "g_corr_hartree", "point_group", "model", "rounds", "reason"]
+            "energy_hartree", "g_corr_hartree", "point_group", "model", "rounds", "reason",
+            "frequency_checked", "thermal_correction_from"]
 
 
 def refine(settings=None) -> list[str]:
@@ -41,7 +43,7 @@ def families(settings) -> list[str]:
 def conformers(settings) -> list[str]:
     return (["conformer", "seed", "temperature_k", "ring_form", "q", "theta", "phi", "orientation",
              "energy_hartree", "g_hartree", "g_rel_kcal", "population", "n_imaginary", "status",
-             "degeneracy", "symmetry_number", "reason"]
+             "degeneracy", "symmetry_number", "reason", "other_rings", "frequency_checked", "thermal_correction_from"]
             + (["energy_refined_hartree", "g_refined_hartree", "refined_single_point"] if _refined(settings) else []))
 
 

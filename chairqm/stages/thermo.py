@@ -1,6 +1,13 @@
 """Thermo stage: minima.json + minima/*.xyz -> thermo.csv, thermo.json and thermo/CONFORMER.{xyz,vib.json}.
 
-For every minimum: the finite-difference Hessian, the proof that it is a minimum (imaginary modes followed
+Hessians only where they decide the answer (chairqm.frequency_window, setting
+thermo.frequency_window_kcal): the minima within the window of the lowest electronic energy and the
+lowest of each chair family. Every other minimum is kept with its energy, marked
+``frequency_checked = false``, and its free energy borrows the thermal correction G − E of the
+frequency-checked conformer named in ``thermal_correction_from`` (with its own symmetry number).
+
+For every minimum that gets one: the finite-difference Hessian (its displacements split over the job's
+worker processes), the proof that it is a minimum (imaginary modes followed
 and re-optimised), bonds and stereocentres checked again, the ring re-measured and the point group found.
 Conformers that mode following brought onto the same minimum are merged again, so thermo.json holds the
 FINAL conformer list the later stages read. Each conformer's Hessian is published as an ASE VibrationsData
@@ -16,8 +23,8 @@ from pathlib import Path
 from .. import fileio
 from . import tables
 from .faults import eclipse_a_methyl, fault
-from .records import (CalcFactory, engine_settings, key_of, load_molecule, pool_map, read_vibrations, read_xyz,
-                      record_key, reusable, write_vibrations, write_xyz)
+from .records import (CalcFactory, engine_settings, key_of, load_molecule, read_vibrations, read_xyz, record_key,
+                      reusable, write_vibrations, write_xyz)
 
 FOLDER = "thermo"
 
@@ -47,9 +54,10 @@ def vibrations_of(vib_path):
     return atoms, freqs
 
 
-def _freq_one(job):
+def _freq_one(job, executor=None):
     """Hessian, proof of minimum and checks of one conformer; geometry, VibrationsData and record written
-    atomically (the record last, as the completion mark)."""
+    atomically (the record last, as the completion mark). `executor`: worker processes that share the
+    Hessian's displacements with this one."""
     from .. import optimize as cq_opt
     from .. import ring as cq_ring
     from .. import symmetry as cq_symmetry
@@ -72,13 +80,14 @@ def _freq_one(job):
     max_rounds = th["max_rounds"]
     if fault("imaginary", f"{name}/{cid}"):
         atoms, energy, max_rounds = eclipse_a_methyl(atoms, p.mol), None, 0
-    proof = cq_vib.prove_minimum(atoms, lambda: factory(), reoptimize, cache_dir,
+    proof = cq_vib.prove_minimum(atoms, factory, reoptimize, cache_dir,
                                  threshold_cm1=th["imaginary_threshold_cm1"], max_rounds=max_rounds,
-                                 step=th["step_a"], energy_hartree=energy)
+                                 step=th["step_a"], energy_hartree=energy, executor=executor)
     rec = {"key": key, "conformer": cid, "proof": proof.to_record(), "thermo_settings": th,
            "reopt_gradient_calls": opt_calls["n"],
            "engine_seconds": proof.engine_seconds + opt_calls["seconds"],
-           "gradient_calls": proof.gradient_calls + opt_calls["n"], "vibrations": False}
+           "gradient_calls": proof.gradient_calls + opt_calls["n"], "vibrations": False,
+           "hessian_gradients": int(sum(h["gradient_calls"] + h["reused"] for h in proof.hessians))}
     status = {"minimum": "ok", "saddle-remains": "saddle", "failed": "failed"}[proof.status]
     reason = "" if status == "ok" else proof.history[-1] if proof.history else proof.status
     final = proof.atoms
@@ -88,7 +97,7 @@ def _freq_one(job):
             status, reason = "failed", "; ".join(x for x in (why_b if not ok_b else "", why_s if not ok_s else "") if x)
         sigma, pg = cq_symmetry.symmetry_number(final)
         rec["symmetry_number"], rec["point_group"] = int(sigma), pg
-        rec["measured"] = cq_ring.measure(final.positions, p.ring, p.substituents)
+        rec["measured"] = cq_ring.measure(final.positions, p.ring, p.substituents, p.other_rings)
         write_vibrations(out_vib, final, proof.hessian)
         rec["vibrations"] = True
     rec["energy_hartree"] = proof.energy_hartree
@@ -98,15 +107,33 @@ def _freq_one(job):
     return rec
 
 
+def _unchecked(name, p, c, xyz_in, out_xyz, window):
+    """The record of a minimum outside the frequency window: no Hessian, its energy, geometry, ring
+    measurement and symmetry number (for its rotational entropy) kept."""
+    from .. import symmetry as cq_symmetry
+    atoms = read_xyz(xyz_in)
+    sigma, pg = cq_symmetry.symmetry_number(atoms)
+    write_xyz(out_xyz, atoms, {"conformer": c["conformer"], "energy_hartree": c["energy_hartree"]})
+    return {"conformer": c["conformer"], "status": "ok", "frequency_checked": False,
+            "reason": (f"not frequency-checked: {window['delta_kcal']:.2f} kcal/mol above the lowest electronic "
+                       f"energy, outside the {window['window_kcal']:.2f} kcal/mol window"),
+            "proof": {"n_imaginary": None, "lowest_frequency_cm1": None, "rounds": 0},
+            "energy_hartree": c["energy_hartree"], "symmetry_number": int(sigma), "point_group": pg,
+            "measured": None, "vibrations": False, "engine_seconds": 0.0, "gradient_calls": 0,
+            "hessian_gradients": 0}
+
+
 def _final_list(p, minima, recs, work, settings):
     """The conformers after the frequency check, re-measured on their final geometry and merged again: a
-    mode followed downhill can land on a minimum that another seed reached too."""
+    mode followed downhill can land on a minimum that another seed reached too. A conformer outside the
+    frequency window is usable without a Hessian (frequency_checked False)."""
     from .. import unique as cq_unique
     confs = []
     for c in minima["conformers"]:
         cid = c["conformer"]
         rec = recs[cid]
-        usable = rec["status"] == "ok" and rec["proof"]["n_imaginary"] == 0
+        checked = rec.get("frequency_checked", True)
+        usable = rec["status"] == "ok" and (not checked or rec["proof"]["n_imaginary"] == 0)
         meas = rec.get("measured") or {k: c.get(k) for k in ("ring_form", "q", "theta", "phi", "orientation")}
         confs.append({"conformer": cid, "seed": c["seed"], "usable": usable,
                       "status": rec["status"] if rec["status"] != "ok" or usable else "saddle",
@@ -115,7 +142,9 @@ def _final_list(p, minima, recs, work, settings):
                       "lowest_frequency_cm1": rec["proof"]["lowest_frequency_cm1"],
                       "symmetry_number": rec.get("symmetry_number"), "point_group": rec.get("point_group"),
                       "geometry": f"{FOLDER}/{cid}.xyz",
-                      "vibrations": f"{FOLDER}/{cid}.vib.json" if rec.get("vibrations") else None})
+                      "vibrations": f"{FOLDER}/{cid}.vib.json" if rec.get("vibrations") else None,
+                      "frequency_checked": bool(checked),
+                      "thermal_correction_from": cid if rec.get("vibrations") else None})
     good = [c for c in confs if c["usable"]]
     geoms = {c["conformer"]: read_xyz(work / f"{c['conformer']}.xyz") for c in good}
     groups = cq_unique.unique_minima(
@@ -130,11 +159,42 @@ def _final_list(p, minima, recs, work, settings):
             c["status"] = "duplicate"
             c["reason"] = (f"after the frequency check this is the {'mirror image' if m in g.mirror_members else 'same minimum'}"
                            f" of {g.name}")
+    _borrow_thermal_corrections(confs)
     return confs
+
+
+def _borrow_thermal_corrections(confs):
+    """Name, for every usable conformer without a Hessian, the frequency-checked conformer whose thermal
+    correction it borrows (chairqm.frequency_window.donor); without any, it cannot be counted."""
+    from .. import frequency_window as cq_fw
+    checked = [c for c in confs if c["usable"] and c["frequency_checked"] and c["vibrations"]]
+    for c in confs:
+        if c["frequency_checked"] or not c["usable"]:
+            continue
+        d = cq_fw.donor(c, checked)
+        if d is None:
+            c["usable"], c["status"] = False, "failed"
+            c["reason"] += "; no frequency-checked conformer to borrow a thermal correction from"
+            continue
+        c["thermal_correction_from"] = d
+        c["thermal_correction_vibrations"] = f"{FOLDER}/{d}.vib.json"
+        c["reason"] += f"; G estimated with the thermal correction of {d}"
+
+
+def _executor(threads, jobs):
+    """Worker processes (threads − 1; this process is the last worker) that share each Hessian's
+    displacements, or None for one thread or nothing to compute."""
+    if threads <= 1 or not jobs:
+        return None
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+    return ProcessPoolExecutor(max_workers=threads - 1, mp_context=mp.get_context("spawn"))
 
 
 def run(cfg, plan, name, threads=1):
     from .. import __version__
+    from .. import frequency_window as cq_fw
+    from ..units import KCAL_PER_HARTREE
     settings = cfg["settings"]
     p = load_molecule(name)
     folder = Path(name)
@@ -146,10 +206,17 @@ def run(cfg, plan, name, threads=1):
     th = thermo_settings(settings)
     temps = [float(t) for t in settings["temperatures_k"]]
     minima = fileio.read_json(folder / "minima.json")
+    window = cq_fw.window_kcal(th["frequency_window_kcal"], temps)
+    selected = set(cq_fw.select(minima["conformers"], window))
+    e0 = min((c["energy_hartree"] for c in minima["conformers"]), default=0.0)
     jobs, recs = [], {}
     for c in minima["conformers"]:
         cid = c["conformer"]
         xyz_in = folder / "minima" / f"{cid}.xyz"
+        if cid not in selected:
+            recs[cid] = _unchecked(name, p, c, xyz_in, work / f"{cid}.xyz",
+                                   {"delta_kcal": (c["energy_hartree"] - e0) * KCAL_PER_HARTREE, "window_kcal": window})
+            continue
         text = xyz_in.read_text()
         key = record_key("thermo", settings, p, text)
         out_json = work / f"{cid}.json"
@@ -160,19 +227,37 @@ def run(cfg, plan, name, threads=1):
         cache = folder / "work" / "freq" / f"{cid}-{key_of(text, es, th['step_a'])[:10]}"
         jobs.append((name, cid, key, es, opt, th, str(xyz_in), c["energy_hartree"], str(cache),
                      str(out_json), str(work / f"{cid}.xyz"), str(work / f"{cid}.vib.json")))
-    for rec in pool_map(_freq_one, jobs, threads):
-        recs[rec["conformer"]] = rec
+    ex = _executor(threads, jobs)
+    try:
+        for job in jobs:
+            rec = _freq_one(job, ex)
+            recs[rec["conformer"]] = rec
+    finally:
+        if ex is not None:
+            ex.shutdown()
+    final = _final_list(p, minima, recs, work, settings)
+    by_id = {c["conformer"]: c for c in final}
+    vib_cache = {}
+
+    def terms_of(c):
+        src = c.get("thermal_correction_from")
+        if src is None:
+            return {}
+        if src not in vib_cache:
+            fileio.write_text(out / f"{src}.vib.json", (work / f"{src}.vib.json").read_text())
+            vib_cache[src] = vibrations_of(out / f"{src}.vib.json")
+        atoms, freqs = vib_cache[src]
+        return {t: free_energy_terms(atoms, freqs, c["symmetry_number"], es["multiplicity"], th, t).to_record()
+                for t in temps}
+
     rows = []
     for c in minima["conformers"]:
         cid = c["conformer"]
-        r = recs[cid]
+        r, f = recs[cid], by_id[cid]
         fileio.write_text(out / f"{cid}.xyz", (work / f"{cid}.xyz").read_text())
-        terms = {}
         if r.get("vibrations"):
             fileio.write_text(out / f"{cid}.vib.json", (work / f"{cid}.vib.json").read_text())
-            atoms, freqs = vibrations_of(out / f"{cid}.vib.json")
-            terms = {t: free_energy_terms(atoms, freqs, r["symmetry_number"], es["multiplicity"], th, t).to_record()
-                     for t in temps}
+        terms = terms_of(f)
         for t in temps:
             term = terms.get(t)
             e = r["energy_hartree"]
@@ -186,10 +271,14 @@ def run(cfg, plan, name, threads=1):
                          "n_imaginary": r["proof"]["n_imaginary"], "status": r["status"],
                          "energy_hartree": e, "g_corr_hartree": term["g_corr"] if term else None,
                          "point_group": r.get("point_group"), "model": th["model"],
-                         "rounds": r["proof"]["rounds"], "reason": r["reason"]})
-    final = _final_list(p, minima, recs, work, settings)
+                         "rounds": r["proof"]["rounds"], "reason": f["reason"] if not f["frequency_checked"] else r["reason"],
+                         "frequency_checked": f["frequency_checked"],
+                         "thermal_correction_from": f.get("thermal_correction_from")})
     fileio.write_json(folder / "thermo.json", {
         "molecule": name, "thermo": th, "chairqm_version": __version__, "conformers": final,
+        "frequency_window_kcal": None if window == float("inf") else window,
+        "hessians": len(selected), "minima": len(minima["conformers"]),
+        "hessian_gradients": int(sum(r.get("hessian_gradients", 0) for r in recs.values())),
         "engine_seconds": float(sum(r["engine_seconds"] for r in recs.values())),
         "gradient_calls": int(sum(r["gradient_calls"] for r in recs.values()))})
     fileio.write_csv(folder / "thermo.csv", tables.frame(rows, tables.thermo(settings)))
