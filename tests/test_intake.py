@@ -175,3 +175,46 @@ def test_cis_12_and_13_dimethyl_are_the_meso_isomers(smiles, meso):
     rdCIPLabeler.AssignCIPLabels(m)
     labels = sorted(a.GetProp("_CIPCode") for a in m.GetAtoms() if a.HasProp("_CIPCode"))
     assert (labels == ["R", "S"]) == meso
+
+
+# ------------------------------------------------------------------ every ring chairqm can analyse
+# Saturated six-membered rings with any of the ring atoms below are chair-forming rings (textbook
+# conformational analysis; silacyclohexanes, thianes and their oxides, phosphinanes, cyclohexanones are
+# all discussed as such, from memory); exocyclic double bonds do not make a ring unsaturated.
+@pytest.mark.parametrize("smiles,elements,fragments", [
+    ("C[SiH]1CCCCC1", ["Si", "C", "C", "C", "C", "C"], ["[*]C"]),                 # 1-methylsilacyclohexane
+    ("O=S1CCCCC1", ["S", "C", "C", "C", "C", "C"], ["[*]=O"]),                     # thiane 1-oxide: S=O ax/eq
+    ("O=S1(=O)CCCCC1", ["S", "C", "C", "C", "C", "C"], ["[*]=O", "[*]=O"]),       # thiane 1,1-dioxide
+    ("O=C1CCCCC1", ["C"] * 6, []),                                                 # cyclohexanone: C=O in plane
+    ("C=C1CCCCC1", ["C"] * 6, []),                                                 # methylenecyclohexane
+    ("CP1(=O)CCCCC1", ["P", "C", "C", "C", "C", "C"], ["[*]C", "[*]=O"]),
+    ("C[Ge]1(C)CCCCC1", ["Ge", "C", "C", "C", "C", "C"], ["[*]C", "[*]C"]),
+    ("O=C1COC(C)OC1", ["C", "C", "O", "C", "O", "C"], ["[*]C"]),                 # a 1,3-dioxan-5-one
+])
+def test_ring_atoms_beyond_c_n_o_and_exocyclic_double_bonds(smiles, elements, fragments):
+    p = one(smiles)
+    assert sorted(p.ring_elements) == sorted(elements)
+    assert sorted(s.fragment for s in p.substituents) == sorted(fragments)
+
+
+@pytest.mark.parametrize("smiles,words", [
+    ("CC1=CCCCC1", "endocyclic double bond"),
+    ("Cc1ccccc1", "aromatic"),
+    ("CCCCCC", "no six-membered ring"),
+])
+def test_refusals_name_the_real_reason(smiles, words):
+    with pytest.raises(ChairqmError, match=words):
+        one(smiles)
+
+
+def test_the_analysed_ring_and_the_other_rings():
+    # most groups wins; a tie goes to the ring with fewer heteroatoms (the cyclohexane of a piperidine
+    # hanging on it), and the other ring is recorded with its link towards the analysed ring
+    p = one("C1CCC(CC1)C1CCNCC1")
+    assert p.ring_elements == ["C"] * 6 and [s.fragment for s in p.substituents] == ["[*]C1CCNCC1"]
+    assert len(p.other_rings) == 1
+    o = p.other_rings[0]
+    assert o["label"] == "r2" and o["link_to"] in p.ring and o["link_atom"] in o["atoms"]
+    q = one("C1CCC(CC1)C1CCNCC1", ring="C1CCNCC1")
+    assert "N" in q.ring_elements and q.other_rings[0]["link_to"] in q.ring
+    assert len(one("C[C@H]1C[C@@H](C)C[C@@H](C2CCCCC2)C1").substituents) == 3      # three groups beat one
