@@ -380,8 +380,9 @@ def _describe(mol, name, rings, charge, multiplicity, source, raw, entry) -> Per
                 continue                 # C=O, C=CH2: in the ring atom's plane, no axial/equatorial
             group = _group_atoms(mol, ring_set, ra, j)
             if group is None:
-                raise ChairqmError(f"{name}: ring atom {ra} is part of a fused, bridged or spiro ring system, "
-                                   "which chairqm does not analyse yet: give an isolated six-membered ring")
+                raise ChairqmError(f"{name}: the analysed ring {ring} is {_system_kind(mol, ring)}, which chairqm "
+                                   "does not analyse yet: give a molecule "
+                                   "whose analysed ring shares no atom with another ring")
             frag = _fragment(mol, ra, j, group)
             gcharge = sum(mol.GetAtomWithIdx(k).GetFormalCharge() for k in group)
             subs.append(Substituent(id=f"s{len(subs) + 1}", ring_atom=ra, first_atom=j, atoms=group,
@@ -406,6 +407,23 @@ def _describe(mol, name, rings, charge, multiplicity, source, raw, entry) -> Per
         notes=notes,
         other_rings=others,
     )
+
+
+def _system_kind(mol, ring) -> str:
+    """'spiro-joined', 'fused' or 'bridged' to another ring, from the atoms it shares with it (SSSR)."""
+    kinds = []
+    for other in mol.GetRingInfo().AtomRings():
+        shared = set(other) & set(ring)
+        if not shared or set(other) == set(ring):
+            continue
+        if len(shared) == 1:
+            kinds.append("spiro-joined to another ring (a shared atom)")
+        elif len(shared) == 2 and mol.GetBondBetweenAtoms(*sorted(shared)) is not None:
+            kinds.append("fused to another ring (a shared bond, as in the decalins, whose ring flip moves both "
+                         "rings at once)")
+        else:
+            kinds.append("part of a bridged ring system")
+    return kinds[0] if kinds else "part of a fused, bridged or spiro ring system"
 
 
 def _other_rings(mol, ring, rings) -> list[dict]:
