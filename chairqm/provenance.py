@@ -37,6 +37,8 @@ RESULT_SETTINGS: dict[str, ResultSettings] = {
     "intake": ResultSettings(job=("enumerate_stereo",)),
     "seeds": ResultSettings(job=("seeds",)),
     "minima": ResultSettings(job=_ENGINE + ("optimize", "unique"), record=_ENGINE + ("optimize",)),
+    # thermo.frequency_window_kcal (which minima get a Hessian) is part of "thermo": it changes the job,
+    # not a conformer's record (see _thermo_record_settings)
     "thermo": ResultSettings(job=_ENGINE + ("optimize", "thermo", "unique", "temperatures_k"),
                              record=_ENGINE + ("optimize", "thermo")),
     "refine": ResultSettings(job=_ENGINE + ("refine", "temperatures_k"), record=_ENGINE + ("refine",)),
@@ -70,8 +72,16 @@ def _refine_energy_settings(block):
     return refine.energy_settings(refine.resolve(block))
 
 
+def _thermo_record_settings(block):
+    """The thermochemistry settings without the frequency window: the window decides which conformers get
+    a Hessian, not what one conformer's Hessian record holds, so widening it reuses every record."""
+    if block is None:
+        return None
+    return {k: v for k, v in dict(block).items() if k != "frequency_window_kcal"}
+
+
 #: Per-record views of a setting: the part of it that changes one conformer's record.
-_RECORD_VIEW = {"refine": _refine_energy_settings}
+_RECORD_VIEW = {"refine": _refine_energy_settings, "thermo": _thermo_record_settings}
 
 
 def record_settings(stage: str, settings: dict) -> dict:

@@ -175,7 +175,63 @@ class HessianRun:
                 "asymmetry_ev_per_a2": self.asymmetry}
 
 
-def hessian_run(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_tag: str | None = None) -> HessianRun:
+def _displaced_forces(work: Atoms, calc, base, step, key, folder: Path, i: int, a: int, sign: int):
+    """Forces (N, 3) at `base` with atom i moved by sign·step along axis a, written to the cache at once;
+    (forces, engine seconds)."""
+    path = folder / _disp_name(i, a, sign)
+    pos = base.copy()
+    pos[i, a] += sign * step
+    work.positions = pos
+    work.calc = calc
+    s = time.perf_counter()
+    f = np.array(work.get_forces(), dtype=float)
+    sec = time.perf_counter() - s
+    if f.shape != (len(work), 3) or not np.all(np.isfinite(f)):
+        raise RuntimeError(f"engine returned non-finite forces at displacement {path.name}")
+    _atomic_write_npz(path, forces=f, key=np.array(key))
+    return f, sec
+
+
+def _forces_chunk(job):
+    """Worker side of :func:`_parallel_forces`: a fresh calculator from the factory for every displacement
+    (as in the serial path), so which process computes a displacement never changes its forces."""
+    factory, numbers, charges, magmoms, base, step, key, folder, chunk = job
+    work = Atoms(numbers, positions=np.array(base, dtype=float))
+    work.set_initial_charges(charges)
+    work.set_initial_magnetic_moments(magmoms)
+    out, engine = [], 0.0
+    for i, a, sign in chunk:
+        f, sec = _displaced_forces(work, factory(), np.asarray(base), step, key, Path(folder), i, a, sign)
+        out.append(((i, a, sign), f))
+        engine += sec
+    return out, engine
+
+
+def _parallel_forces(executor, factory, work: Atoms, base, step, key, folder: Path, missing):
+    """Displacement forces split over `executor`'s worker processes and this one: the displacements go out
+    in small chunks; this process takes back any chunk no worker has started yet (so a worker still
+    starting up never holds the others back). Returns ({(i, a, sign): forces}, engine seconds summed over
+    processes)."""
+    workers = max(1, int(getattr(executor, "_max_workers", 1)))
+    size = max(1, min(8, math.ceil(len(missing) / (6 * (workers + 1)))))
+    chunks = [missing[k:k + size] for k in range(0, len(missing), size)]
+    args = [(factory, work.numbers.copy(), work.get_initial_charges(), work.get_initial_magnetic_moments(),
+             base, step, key, str(folder), ch) for ch in chunks]
+    futures = [executor.submit(_forces_chunk, x) for x in args]
+    results = []
+    for fut, x in zip(reversed(futures), reversed(args)):
+        if fut.cancel():
+            results.append(_forces_chunk(x))
+    results.extend(f.result() for f in futures if not f.cancelled())
+    forces, engine = {}, 0.0
+    for out, sec in results:
+        forces.update(out)
+        engine += sec
+    return forces, engine
+
+
+def hessian_run(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_tag: str | None = None,
+                executor=None) -> HessianRun:
     """Cartesian Hessian by central differences of analytic gradients, with a resumable cache.
 
     H[3i+a, :] = -(F(x + h e_ia) - F(x - h e_ia)) / (2h) for each atom i and axis a (6N gradient calls;
@@ -198,6 +254,11 @@ def hessian_run(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_
     < 0.1 cm⁻¹ in ν for cyclohexane at tblite's default accuracy).  Creating a tblite calculator costs
     nothing measurable against its SCF (9.5 vs 9.3 ms per cyclohexane gradient), so prefer a factory.
     `calc_tag` overrides the calculator description in the key (default :func:`calculator_tag`).
+
+    `executor` (a ``concurrent.futures.ProcessPoolExecutor``, used only with a picklable factory): the
+    missing displacements are split between its workers and the calling process, so one conformer's
+    Hessian uses every core a job has. Every displacement still gets a fresh calculator, so the Hessian
+    is bitwise the serial one. engine_seconds then sums the time spent in the engine by all processes.
     """
     t0 = time.perf_counter()
     step = float(step)
@@ -220,34 +281,34 @@ def hessian_run(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_
     work.set_initial_magnetic_moments(atoms.get_initial_magnetic_moments())
 
     hess = np.zeros((3 * natoms, 3 * natoms))
-    calls = reused = 0
-    engine = 0.0
+    forces, calls, reused, engine = {}, 0, 0, 0.0
+    missing = []
     for i in range(natoms):
         for a in range(3):
-            pair = []
             for sign in (+1, -1):
-                path = folder / _disp_name(i, a, sign)
-                f = _load_forces(path, key, natoms)
+                f = _load_forces(folder / _disp_name(i, a, sign), key, natoms)
                 if f is None:
-                    pos = base.copy()
-                    pos[i, a] += sign * step
-                    work.positions = pos
-                    if factory is not None and calls > 0:
-                        calc = factory()
-                    elif factory is None:
-                        calc.reset()
-                    work.calc = calc
-                    s = time.perf_counter()
-                    f = np.array(work.get_forces(), dtype=float)
-                    engine += time.perf_counter() - s
-                    calls += 1
-                    if f.shape != (natoms, 3) or not np.all(np.isfinite(f)):
-                        raise RuntimeError(f"engine returned non-finite forces at displacement {path.name}")
-                    _atomic_write_npz(path, forces=f, key=np.array(key))
+                    missing.append((i, a, sign))
                 else:
+                    forces[(i, a, sign)] = f
                     reused += 1
-                pair.append(f)
-            hess[3 * i + a] = -(pair[0] - pair[1]).ravel() / (2.0 * step)
+    if missing and executor is not None and factory is not None and len(missing) > 1:
+        got, engine = _parallel_forces(executor, factory, work, base, step, key, folder, missing)
+        forces.update(got)
+        calls = len(missing)
+    else:
+        for i, a, sign in missing:
+            if factory is not None and calls > 0:
+                calc = factory()
+            elif factory is None:
+                calc.reset()
+            f, sec = _displaced_forces(work, calc, base, step, key, folder, i, a, sign)
+            forces[(i, a, sign)] = f
+            engine += sec
+            calls += 1
+    for i in range(natoms):
+        for a in range(3):
+            hess[3 * i + a] = -(forces[(i, a, +1)] - forces[(i, a, -1)]).ravel() / (2.0 * step)
     asym = float(np.max(np.abs(hess - hess.T)) / 2.0)
     hess = 0.5 * (hess + hess.T)
     run = HessianRun(hessian=hess, step=step, gradient_calls=calls, reused=reused, engine_seconds=engine,
@@ -389,7 +450,7 @@ def _fmt_imag(values) -> str:
 def prove_minimum(atoms: Atoms, calc_factory, reoptimize, cache_dir,
                   threshold_cm1: float = DEFAULT_IMAGINARY_THRESHOLD, max_rounds: int = 3,
                   displacement: float = DEFAULT_DISPLACEMENT, step: float = DEFAULT_STEP,
-                  energy_hartree: float | None = None) -> MinimumProof:
+                  energy_hartree: float | None = None, executor=None) -> MinimumProof:
     """Show that `atoms` (an optimised geometry) is a minimum, or follow its imaginary modes to one.
 
     Round 0 computes the Hessian and frequencies (:func:`hessian_run`, :func:`frequencies`) in
@@ -399,7 +460,8 @@ def prove_minimum(atoms: Atoms, calc_factory, reoptimize, cache_dir,
     (atoms, energy_hartree)``, the lower is kept, and the Hessian is recomputed in ``cache_dir/roundK``.
     If neither side lowered the energy by at least 1e-4 kcal/mol, the next round doubles the displacement.
 
-    calc_factory() -> a new ASE calculator (the same settings as the optimisation).  `energy_hartree`
+    calc_factory() -> a new ASE calculator (the same settings as the optimisation); `executor` is passed to
+    :func:`hessian_run` (displacements split over worker processes).  `energy_hartree`
     of the input geometry may be passed to save a single point.  Errors of the engine or optimiser give
     status 'failed' with the message in `history` (a ChairqmError, which the user must fix, is raised).
     The threshold: see DEFAULT_IMAGINARY_THRESHOLD; residual imaginary modes with |ν| below it are
@@ -419,7 +481,7 @@ def prove_minimum(atoms: Atoms, calc_factory, reoptimize, cache_dir,
     history = proof.history
 
     def analyse(geom: Atoms, rnd: int):
-        run = hessian_run(geom, calc_factory, cache_dir / f"round{rnd}", step=step)
+        run = hessian_run(geom, calc_factory, cache_dir / f"round{rnd}", step=step, executor=executor)
         proof.gradient_calls += run.gradient_calls
         proof.engine_seconds += run.engine_seconds
         proof.hessians.append(run.to_record())

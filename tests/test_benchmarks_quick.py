@@ -17,6 +17,8 @@ SCRIPTS = {
     "overhead.py": [],
     "scaling.py": [pytest.mark.slow],
     "refine.py": [],
+    "rings.py": [],
+    "avalue.py": [pytest.mark.slow],
 }
 # a table as benchmarks/_common.table prints it: a header line, then a rule of dash runs separated by two spaces
 RULE = re.compile(r"^-+(  -+)+$", re.M)

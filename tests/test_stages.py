@@ -222,6 +222,18 @@ def test_published_hessian_opens_with_ase_and_gives_our_frequencies(tmp_path):
     assert math.isfinite(c.g(298.15))
 
 
+def test_light_hessian_reader_gives_what_ase_reads(tmp_path):
+    """records.read_vibrations (no ase.vibrations import) returns exactly ASE's VibrationsData contents."""
+    from ase.vibrations import VibrationsData
+    _conformer(tmp_path, "c001", -5.07)
+    path = tmp_path / "thermo" / "c001.vib.json"
+    atoms, hess = records.read_vibrations(path)
+    data = VibrationsData.read(str(path))
+    assert np.array_equal(hess, data.get_hessian_2d())
+    assert np.array_equal(atoms.positions, data.get_atoms().positions)
+    assert list(atoms.numbers) == list(data.get_atoms().numbers)
+
+
 def test_every_chair_gap_is_given_on_one_axis():
     """G(second) − G(preferred) of the computed chairs: an estimate that prefers the other chair is
     negative on it (common practice for a signed difference), whatever its own sign convention."""

@@ -193,6 +193,27 @@ def test_hessian_cache_resumes_and_is_identical(gfn2, ethane, tmp_path):
     assert record["gradient_calls"] == n6 // 2 and record["engine_seconds"] > 0
 
 
+def test_hessian_split_over_worker_processes_is_bitwise_the_serial_one(ethane, tmp_path):
+    """Displacements shared between a spawned worker and this process (including a resumed cache) give
+    exactly the serial Hessian: the reliability tests compare output files byte for byte between runs."""
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    from chairqm.stages.records import CalcFactory
+    factory = CalcFactory({"engine": "tblite", "method": "GFN2-xTB", "solvent": None, "accuracy": 1.0,
+                           "electronic_temperature": 300.0, "charge": 0, "multiplicity": 1})
+    serial = hessian_run(ethane, factory, tmp_path / "serial")
+    with ProcessPoolExecutor(max_workers=1, mp_context=mp.get_context("spawn")) as ex:
+        split = hessian_run(ethane, factory, tmp_path / "split", executor=ex)
+        for f in sorted((tmp_path / "split").glob("disp-*.npz"))[::3]:
+            f.unlink()
+        resumed = hessian_run(ethane, factory, tmp_path / "split", executor=ex)
+    n6 = 6 * len(ethane)
+    assert split.gradient_calls == n6 and resumed.reused == n6 - resumed.gradient_calls > 0
+    assert np.array_equal(split.hessian, serial.hessian)
+    assert np.array_equal(resumed.hessian, serial.hessian)
+
+
 def test_hessian_cache_refuses_another_geometry(gfn2, ethane, tmp_path):
     folder = tmp_path / "conformer"
     hessian_run(ethane, gfn2, folder)

@@ -119,7 +119,26 @@ def write_vibrations(path, atoms, hessian) -> None:
 
 
 def read_vibrations(path):
-    """(atoms, Hessian 3N×3N in eV/Å²) of a VibrationsData file written by :func:`write_vibrations`."""
-    from ase.vibrations import VibrationsData
-    data = VibrationsData.read(str(path))
-    return data.get_atoms(), data.get_hessian_2d()
+    """(atoms, Hessian 3N×3N in eV/Å²) of a VibrationsData file written by :func:`write_vibrations`.
+
+    Decoded with ase.io.jsonio's own object hook but without building the VibrationsData object: importing
+    ase.vibrations pulls in matplotlib (through ase.spectrum), about a second per stage process here, for
+    nothing the later stages use. A file with a partial atom selection goes through VibrationsData."""
+    import json
+
+    import numpy as np
+    from ase.io.jsonio import object_hook
+
+    def hook(d):
+        if d.get("__ase_objtype__") == "vibrationsdata":
+            return {k: v for k, v in d.items() if k != "__ase_objtype__"}
+        return object_hook(d)
+
+    d = json.loads(Path(path).read_text(encoding="utf-8"), object_hook=hook)
+    atoms, indices = d["atoms"], d.get("indices")
+    if indices is not None and len(indices) != len(atoms):
+        from ase.vibrations import VibrationsData
+        data = VibrationsData.read(str(path))
+        return data.get_atoms(), data.get_hessian_2d()
+    n3 = 3 * len(atoms)
+    return atoms, np.asarray(d["hessian"], dtype=float).reshape(n3, n3)

@@ -191,6 +191,28 @@ def _executor(threads, jobs):
     return ProcessPoolExecutor(max_workers=threads - 1, mp_context=mp.get_context("spawn"))
 
 
+def _phase_window(th, temps, recs, work, minima, es, first):
+    """The automatic window once the first Hessians are known: chairqm.frequency_window.auto_window_kcal
+    with Z_S/w_0 from the frequency-checked conformers of the first phase (1 when the conformer of lowest
+    electronic energy has no usable Hessian)."""
+    from .. import frequency_window as cq_fw
+    confs = minima["conformers"]
+    lowest = min(confs, key=lambda c: (c["energy_hartree"], c["conformer"]))["conformer"]
+    usable = [c["conformer"] for c in confs if c["conformer"] in first and recs[c["conformer"]]["status"] == "ok"
+              and recs[c["conformer"]]["proof"]["n_imaginary"] == 0 and recs[c["conformer"]].get("vibrations")]
+    if lowest not in usable:
+        return cq_fw.auto_window_kcal(temps)
+    deg = {c["conformer"]: c["degeneracy"] for c in confs}
+    vib = {cid: vibrations_of(work / f"{cid}.vib.json") for cid in usable}
+    z = {}
+    for t in temps:
+        g = {cid: recs[cid]["energy_hartree"] + free_energy_terms(*vib[cid], recs[cid]["symmetry_number"],
+                                                                  es["multiplicity"], th, t).g_corr
+             for cid in usable}
+        z[t] = cq_fw.partition_ratio(g, deg, lowest, t)
+    return cq_fw.auto_window_kcal(temps, z_ratios=z)
+
+
 def run(cfg, plan, name, threads=1):
     from .. import __version__
     from .. import frequency_window as cq_fw
@@ -206,35 +228,51 @@ def run(cfg, plan, name, threads=1):
     th = thermo_settings(settings)
     temps = [float(t) for t in settings["temperatures_k"]]
     minima = fileio.read_json(folder / "minima.json")
-    window = cq_fw.window_kcal(th["frequency_window_kcal"], temps)
-    selected = set(cq_fw.select(minima["conformers"], window))
+    setting = th["frequency_window_kcal"]
+    auto = isinstance(setting, str) and setting.strip().lower() == cq_fw.AUTO
+    recs, pool = {}, {"ex": None}
+
+    def compute(ids):
+        """Hessians of conformers `ids` (records reused by key), displacements shared over the workers."""
+        jobs = []
+        for c in minima["conformers"]:
+            cid = c["conformer"]
+            if cid not in ids:
+                continue
+            xyz_in = folder / "minima" / f"{cid}.xyz"
+            text = xyz_in.read_text()
+            key = record_key("thermo", settings, p, text)
+            out_json = work / f"{cid}.json"
+            old = reusable(out_json, key, needs=[work / f"{cid}.xyz"])
+            if old is not None and (not old.get("vibrations") or (work / f"{cid}.vib.json").is_file()):
+                recs[cid] = old               # reuse; a failed record is retried
+                continue
+            cache = folder / "work" / "freq" / f"{cid}-{key_of(text, es, th['step_a'])[:10]}"
+            jobs.append((name, cid, key, es, opt, th, str(xyz_in), c["energy_hartree"], str(cache),
+                         str(out_json), str(work / f"{cid}.xyz"), str(work / f"{cid}.vib.json")))
+        if jobs and pool["ex"] is None:
+            pool["ex"] = _executor(threads, jobs)
+        for job in jobs:
+            rec = _freq_one(job, pool["ex"])
+            recs[rec["conformer"]] = rec
+
+    try:
+        # first the Hessians every answer needs (and, with a fixed window, all of them)
+        first = set(cq_fw.select(minima["conformers"], 0.0 if auto else cq_fw.window_kcal(setting, temps)))
+        compute(first)
+        window = (_phase_window(th, temps, recs, work, minima, es, first) if auto
+                  else cq_fw.window_kcal(setting, temps))
+        selected = first | set(cq_fw.select(minima["conformers"], window))
+        compute(selected - first)
+    finally:
+        if pool["ex"] is not None:
+            pool["ex"].shutdown()
     e0 = min((c["energy_hartree"] for c in minima["conformers"]), default=0.0)
-    jobs, recs = [], {}
     for c in minima["conformers"]:
         cid = c["conformer"]
-        xyz_in = folder / "minima" / f"{cid}.xyz"
         if cid not in selected:
-            recs[cid] = _unchecked(name, p, c, xyz_in, work / f"{cid}.xyz",
+            recs[cid] = _unchecked(name, p, c, folder / "minima" / f"{cid}.xyz", work / f"{cid}.xyz",
                                    {"delta_kcal": (c["energy_hartree"] - e0) * KCAL_PER_HARTREE, "window_kcal": window})
-            continue
-        text = xyz_in.read_text()
-        key = record_key("thermo", settings, p, text)
-        out_json = work / f"{cid}.json"
-        old = reusable(out_json, key, needs=[work / f"{cid}.xyz"])
-        if old is not None and (not old.get("vibrations") or (work / f"{cid}.vib.json").is_file()):
-            recs[cid] = old               # reuse; a failed record is retried
-            continue
-        cache = folder / "work" / "freq" / f"{cid}-{key_of(text, es, th['step_a'])[:10]}"
-        jobs.append((name, cid, key, es, opt, th, str(xyz_in), c["energy_hartree"], str(cache),
-                     str(out_json), str(work / f"{cid}.xyz"), str(work / f"{cid}.vib.json")))
-    ex = _executor(threads, jobs)
-    try:
-        for job in jobs:
-            rec = _freq_one(job, ex)
-            recs[rec["conformer"]] = rec
-    finally:
-        if ex is not None:
-            ex.shutdown()
     final = _final_list(p, minima, recs, work, settings)
     by_id = {c["conformer"]: c for c in final}
     vib_cache = {}
