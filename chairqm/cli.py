@@ -3,12 +3,10 @@
 from __future__ import annotations
 
 import argparse
-import os
-import subprocess
 import sys
 from pathlib import Path
 
-from . import __version__
+from . import __version__, api
 from . import config as cq_config
 from .errors import ChairqmError
 
@@ -26,107 +24,16 @@ def snakefile() -> Path:
     return workflow.snakefile()
 
 
-def resolve_profiles(extra) -> list[str]:
-    """Snakemake arguments with every `--profile X` that names a packaged profile (`laptop`, `slurm`,
-    or the source tree's old path `workflows/profiles/NAME`) and is not an existing folder replaced by
-    the packaged profile's folder; anything else is passed on unchanged."""
-    from . import workflow
-    out = list(extra)
-    for i, arg in enumerate(out):
-        value, prefix = None, ""
-        if arg == "--profile" and i + 1 < len(out):
-            value, idx = out[i + 1], i + 1
-        elif arg.startswith("--profile="):
-            value, idx, prefix = arg.split("=", 1)[1], i, "--profile="
-        if value is None or Path(value).is_dir():
-            continue
-        name = Path(value).name
-        if name in workflow.profile_names() and (Path(value).parent.as_posix() in ("", ".", "workflows/profiles")):
-            out[idx] = prefix + str(workflow.profile(name))
-    return out
-
-
-def available_stages() -> list[str]:
-    """Stages a run can stop after (`--until`), from the one stage registry."""
-    from . import stages
-    return stages.until_names()
-
-
-def failed_stage_targets(out: Path, plan, settings) -> list[str]:
-    """The first output of every stage that failed for a molecule in an earlier run (its failed.json):
-    Snakemake counts that stage's empty outputs as up to date, so a plain rerun would keep the molecule
-    failed. Passing these to --forcerun recomputes the failed stage and everything after it."""
-    from . import fileio, stages
-    targets = []
-    for m in plan.molecules:
-        f = out / m.name / stages.FAILURE_RECORD
-        if not f.is_file():
-            continue
-        try:
-            stage = stages.get(fileio.read_json(f)["stage"])
-        except (KeyError, ValueError, OSError):
-            continue
-        if stage.per_molecule and stage.enabled(settings):
-            targets.append(f"{m.name}/{stage.paths()[0][0]}")
-    return targets
-
-
-def _prepare(config_path):
-    """Validate configuration, molecules and engine settings; return (cfg, plan). Raises ChairqmError."""
-    from .plan import make_plan
-    cfg = cq_config.load(config_path)
-    plan = make_plan(cfg)
-    problems = list(plan.problems)
-    try:
-        from . import engine
-    except ImportError:
-        engine = None
-    if engine is not None:
-        s = cfg["settings"]
-        try:
-            engine.check_settings(s["engine"], s["method"], s.get("solvent"))
-        except ChairqmError as exc:
-            problems.append(str(exc))
-    if not problems and cfg["settings"].get("refine") is not None:
-        try:
-            from . import refine
-            rs = refine.resolve(cfg["settings"]["refine"])
-            for m in plan.molecules:
-                elements = [a.GetSymbol() for a in m.mol.GetAtoms()]
-                try:
-                    refine.check(rs, elements, m.charge, m.multiplicity, cfg["settings"].get("solvent"))
-                except ChairqmError as exc:
-                    problems.append(f"{m.name}: refine: {exc}")
-        except ImportError as exc:
-            problems.append(f"settings.refine needs PySCF and dftd3: pip install -e '.[dft]' ({exc})")
-        except ChairqmError as exc:
-            problems.append(f"settings.refine: {exc}")
-    if problems:
-        raise ChairqmError("\n".join(problems))
-    return cfg, plan
-
-
-def _table(plan) -> str:
-    rows = [("molecule", "ring atoms", "substituents", "stereo")]
-    for m in plan.molecules:
-        ring = "-".join(f"{e}{i}" for e, i in zip(m.ring_elements, m.ring))
-        subs = ", ".join(f"{s.id}@{s.ring_atom} {s.fragment}" for s in m.substituents) or "none"
-        name = m.name + (" (reference)" if m.reference else "")
-        rows.append((name, ring, subs, m.stereo))
-    widths = [max(len(r[i]) for r in rows) for i in range(4)]
-    lines = ["  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in rows]
-    lines.insert(1, "  ".join("-" * w for w in widths))
-    return "\n".join(lines)
+# the command line reads the same registry and resolves profiles the same way as the API
+available_stages = api.available_stages
+failed_stage_targets = api.failed_stage_targets
+resolve_profiles = api.resolve_profiles
 
 
 def cmd_check(args) -> int:
-    cfg, plan = _prepare(args.config)
-    print(_table(plan))
-    s = cfg["settings"]
-    solvent = s.get("solvent") or {}
-    print(f"\n{len(plan.molecules)} molecule(s); {s['method']} with {s['engine']}; solvent: "
-          f"{(solvent.get('model', '') + ' ' + solvent.get('name', '')).strip() or 'none (gas phase)'}; "
-          f"T = {', '.join(f'{t:g}' for t in s['temperatures_k'])} K")
+    result = api.check(args.config)
+    print(result.table)
+    print("\n" + result.settings_line)
     return 0
 
 
@@ -134,151 +41,131 @@ def default_out(config_path) -> Path:
     return Path("results") / Path(config_path).stem
 
 
-def run_workflow(config_path, out, cores=2, until=None, extra=()) -> int:
-    cfg, plan = _prepare(config_path)
-    extra = resolve_profiles(extra)
-    stages = available_stages()
-    if until is not None and until not in stages:
-        raise ChairqmError(f"--until {until}: the stages are {', '.join(stages)}")
-    target = "all" if until is None else f"until_{until}"
-    out = Path(out).resolve()
-    out.mkdir(parents=True, exist_ok=True)
-    for m in plan.molecules:
-        if (out / m.name).is_symlink():
-            raise ChairqmError(f"{out / m.name} is a symbolic link: chairqm writes only inside the output folder; "
-                               "remove the link or choose another --out")
-    dry = any(a in ("-n", "--dry-run", "--dryrun", "--summary", "--detailed-summary", "--list-changes")
-              for a in extra)
-    lock = None if dry else _lock_output(out)      # a dry run writes nothing and needs no lock
-    import time
-    from . import fileio
-    if not dry:
-        fileio.write_json(out / ".chairqm" / "run-start.json",
-                          {"epoch": time.time(), "iso": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "target": target})
-    retry = failed_stage_targets(out, plan, cfg["settings"])
-    if retry and not dry:
-        print(f"chairqm: retrying what failed before: {', '.join(retry)}", file=sys.stderr)
-    cmd = [sys.executable, "-m", "snakemake", target, "--snakefile", str(snakefile()), "--directory", str(out),
-           "--config", f"chairqm_config={Path(config_path).resolve()}", "--cores", str(cores),
-           "--rerun-incomplete", "--keep-going", "--nolock", *(["--printshellcmds"] if os.environ.get("CHAIRQM_VERBOSE") else ["--quiet", "rules"]),
-           *(["--forcerun", *retry] if retry else []), *extra]
-    env = dict(os.environ)
-    env.setdefault("OMP_NUM_THREADS", "1")
-    env.setdefault("OPENBLAS_NUM_THREADS", "1")
-    env.setdefault("MKL_NUM_THREADS", "1")
-    try:
-        proc = subprocess.run(cmd, env=env)
-    finally:
-        if lock is not None:
-            lock.close()
-    if proc.returncode != 0:
-        print(f"chairqm: the workflow stopped with an error (exit {proc.returncode}); "
-              f"logs are in {out}/<molecule>/logs/", file=sys.stderr)
-        return proc.returncode
-    return _finish(out, plan, until)
+def _fmt(v, digits=2) -> str:
+    """A number as the terminal shows it (2 decimals for kcal/mol); '' for missing."""
+    if v is None or v == "" or (isinstance(v, float) and v != v):
+        return ""
+    return f"{float(v):.{digits}f}"
 
 
-def _lock_output(out: Path):
-    """One chairqm run per output folder: an exclusive advisory lock on OUT/.chairqm/run.lock, released
-    by the kernel when the process dies, so a killed run never blocks the rerun (Snakemake's own lock
-    files would, so chairqm runs Snakemake with --nolock under this lock)."""
-    import fcntl
-    path = out / ".chairqm" / "run.lock"
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fh = open(path, "w")
-    try:
-        fcntl.flock(fh, fcntl.LOCK_EX | fcntl.LOCK_NB)
-    except OSError:
-        fh.close()
-        raise ChairqmError(f"another chairqm run is using {out}: wait for it to finish or choose another --out")
-    return fh
+def answers_table(summary) -> str:
+    """The run's answers as a text table: per molecule and temperature the preferred family, chair gap,
+    A-value (calibrated value with its 95 % interval where a calibration applies), other ring forms, flag."""
+    rows = [("molecule", "T/K", "preferred family", "chair dG", "A-value", "calibrated (95 % interval)",
+             "other forms", "flag")]
+    for r in summary.to_dict("records"):
+        if r["status"] != "ok":
+            rows.append((r["molecule"], f"{r['temperature_k']:g}", f"FAILED: {r.get('reason', '')}", "", "", "", "", ""))
+            continue
+        cal = r.get("calibrated_kcal")
+        cal_text = ""
+        if _fmt(cal):
+            what = " (chair dG)" if r.get("calibrated_quantity") == "chair_dg_kcal" else ""
+            cal_text = (f"{_fmt(cal)} ({_fmt(r.get('interval_low_kcal'))} to {_fmt(r.get('interval_high_kcal'))})"
+                        + what)
+        tb = r.get("twist_boat_population")
+        flag = r.get("flag")
+        flagged = flag is True or str(flag).lower() == "true"
+        rows.append((r["molecule"], f"{r['temperature_k']:g}", r.get("preferred_family", ""),
+                     _fmt(r.get("chair_dg_kcal")), _fmt(r.get("a_value_kcal")), cal_text,
+                     f"{100 * float(tb):.1f} %" if _fmt(tb) else "", "FLAG" if flagged else "-"))
+    text = api.format_rows(rows)
+    reasons = []
+    for r in summary.to_dict("records"):
+        flag = r.get("flag")
+        if r["status"] == "ok" and (flag is True or str(flag).lower() == "true") and r.get("flag_reason"):
+            reasons.append(f"  {r['molecule']} ({r['temperature_k']:g} K): {r['flag_reason']}")
+    if reasons:
+        text += "\nflagged:\n" + "\n".join(dict.fromkeys(reasons))
+    return text + "\n(free energies in kcal/mol; chair dG = G(other chair) - G(preferred chair))"
 
 
-def _finish(out: Path, plan, until) -> int:
-    summary = out / "summary.csv"
-    if until is None and summary.is_file():
-        import pandas as pd
-        df = pd.read_csv(summary)
-        failed = sorted(set(df.loc[df["status"] != "ok", "molecule"]))
-        report = out / "report.html"
-        print(f"chairqm: results in {out}" + (f"; report: {report}" if report.is_file() else ""))
-        if failed:
-            print(f"chairqm: {len(failed)} molecule(s) failed: {', '.join(failed)} (see summary.csv)", file=sys.stderr)
-            return 1
+def report_run(result, until) -> int:
+    """Print what a finished run answers and where its files are; the exit code (1 if a molecule failed)."""
+    out = result.out
+    if until is not None:
+        print(f"chairqm: stage '{until}' done; results in {out}")
         return 0
-    if until is None:
+    if not (out / "summary.csv").is_file():
         print(f"chairqm: nothing was run to completion in {out} (dry run?)")
         return 0
-    print(f"chairqm: stage '{until}' done; results in {out}")
+    print()
+    print(answers_table(result.summary))
+    report = result.report
+    print(f"\nchairqm: results in {out}" + (f"; report: {report}" if report else ""))
+    failed = result.failed
+    if failed:
+        print(f"chairqm: {len(failed)} molecule(s) failed: {', '.join(failed)} (see summary.csv)", file=sys.stderr)
+        return 1
     return 0
 
 
-def _with_profile(args, extra) -> list[str]:
-    return (["--profile", args.profile] if getattr(args, "profile", None) else []) + list(extra)
+def _run_options(args, extra) -> dict:
+    return {"profile": getattr(args, "profile", None), "snakemake_args": list(extra),
+            "verbose": True if getattr(args, "verbose", False) else None}
+
+
+def run_workflow(config_path, out, cores=2, until=None, snakemake_args=(), verbose=None, profile=None) -> int:
+    """Run the workflow and print its answers; the exit code. Input errors raise ChairqmError."""
+    try:
+        result = api.run(config_path, out, cores=cores, until=until, profile=profile,
+                         snakemake_args=snakemake_args, verbose=verbose)
+    except api.WorkflowError as exc:
+        for line in str(exc).splitlines():
+            print(f"chairqm: {line}", file=sys.stderr)
+        return exc.returncode
+    return report_run(result, until)
 
 
 def cmd_run(args, extra) -> int:
-    extra = _with_profile(args, extra)
     out = args.out or default_out(args.config)
-    return run_workflow(args.config, out, cores=args.cores, until=args.until, extra=extra)
+    return run_workflow(args.config, out, cores=args.cores, until=args.until, **_run_options(args, extra))
+
+
+def avalue_table(table) -> str:
+    rows = [("group", "T/K", "A-value", "calibrated (95 % interval)", "tabulated", "eq. chair", "ax. chair",
+             "other forms")]
+    for r in table.to_dict("records"):
+        if r["status"] != "ok" or _fmt(r["a_value_kcal"]) == "":
+            rows.append((r["group"], f"{r['temperature_k']:g}", f"none: {r['reason']}", "", _fmt(r["tabulated_kcal"]),
+                         "", "", ""))
+            continue
+        cal = (f"{_fmt(r['calibrated_kcal'])} ({_fmt(r['interval_low_kcal'])} to {_fmt(r['interval_high_kcal'])})"
+               if _fmt(r["calibrated_kcal"]) else "")
+        pct = (lambda v: f"{100 * v:.1f} %" if _fmt(v) else "")
+        rows.append((r["group"], f"{r['temperature_k']:g}", _fmt(r["a_value_kcal"]), cal, _fmt(r["tabulated_kcal"]),
+                     pct(r["equatorial_chair_population"]), pct(r["axial_chair_population"]),
+                     pct(r["other_ring_forms_population"])))
+    return api.format_rows(rows)
 
 
 def cmd_avalue(args, extra) -> int:
-    """Build the group's monosubstituted cyclohexane, run the whole workflow on it, print the A-value."""
-    import yaml
-    from . import additivity, avalues
-    from .plan import _slug
-    extra = _with_profile(args, extra)
-    frag = avalues.canonical_fragment(args.fragment)
-    smiles = additivity.reference_smiles(frag)
-    name = _slug(frag).replace("ref-", "avalue-", 1)
-    out = Path(args.out or Path("results") / name)
-    # only what the user gave; every other setting takes the schema's default
-    given = {"temperatures_k": args.temperature, "engine": args.engine, "method": args.method}
-    settings = {k: v for k, v in given.items() if v is not None}
-    settings["analysis"] = {"reference_groups": False}
-    if args.solvent:
-        model, _, sname = args.solvent.partition(":")
-        if not sname:
-            raise ChairqmError(f"--solvent {args.solvent!r}: write MODEL:NAME, e.g. alpb:water or gbsa:chloroform")
-        settings["solvent"] = {"model": model.lower(), "name": sname}
-    cfg = {"project": f"A-value of {frag}", "molecules": [{"name": name, "smiles": smiles,
-                                                           "note": f"monosubstituted cyclohexane of {frag}"}],
-           "settings": settings}
-    out.mkdir(parents=True, exist_ok=True)
-    cfg_path = out / "avalue-config.yaml"
-    from . import fileio
-    fileio.write_text(cfg_path, yaml.safe_dump(cfg, sort_keys=False))
-    code = run_workflow(cfg_path, out, cores=args.cores, until=None, extra=extra)
-    summary = out / "summary.csv"
-    if not summary.is_file():
-        return code or 1
-    import pandas as pd
-    df = pd.read_csv(summary, keep_default_na=False)
-    used = {**cq_config.settings_defaults(), **settings}
-    tab = avalues.lookup(frag)
-    for r in df.itertuples():
-        if r.status != "ok" or r.a_value_kcal == "":
-            print(f"{frag}: no A-value at {r.temperature_k:g} K ({r.reason or r.flag_reason})")
-            continue
-        fam = pd.read_csv(out / name / "families.csv")
-        fam = fam[fam["temperature_k"] == r.temperature_k]
-        chairs = fam[fam["ring_form"] == "chair"]
-        eq = chairs.loc[chairs["axial"].isna(), "population"].sum()
-        ax = chairs.loc[chairs["axial"].notna(), "population"].sum()
-        line = (f"A({frag}) = {float(r.a_value_kcal):.2f} kcal/mol at {r.temperature_k:g} K "
-                f"({used['method']}, {used['engine']}, {args.solvent or 'gas phase'}); "
-                f"equatorial chair {100 * eq:.1f} %, axial chair {100 * ax:.1f} %, "
-                f"other ring forms {100 * float(r.twist_boat_population):.1f} %")
-        cal = getattr(r, "calibrated_kcal", "")
-        if cal not in ("", None):
-            line += (f"; calibrated {float(cal):.2f} kcal/mol, 95 % interval "
-                     f"{float(r.interval_low_kcal):.2f} to {float(r.interval_high_kcal):.2f}")
-        print(line)
-    if tab is not None:
-        print(f"tabulated for comparison: {tab['a_value_kcal']:.2f} kcal/mol ({tab['source']})")
-    print(f"report: {out / 'report.html'}")
-    return code
+    """Build each group's monosubstituted cyclohexane, run the whole workflow once on all of them, print
+    one table of A-values (also written as OUT/avalues.csv)."""
+    try:
+        res = api.avalues(args.fragment, temperatures_k=args.temperature, solvent=args.solvent, out=args.out,
+                          cores=args.cores, engine=args.engine, method=args.method, **_run_options(args, extra))
+    except api.WorkflowError as exc:
+        for line in str(exc).splitlines():
+            print(f"chairqm: {line}", file=sys.stderr)
+        return exc.returncode
+    used = {**cq_config.settings_defaults(), **{k: v for k, v in (("engine", args.engine), ("method", args.method))
+                                                   if v is not None}}
+    print()
+    print(avalue_table(res.table))
+    how = f"{used['method']}, {used['engine']}, {args.solvent or 'gas phase'}"
+    print(f"(kcal/mol; A = G(axial chair) - G(equatorial chair); {how}; tabulated values: "
+          "chairqm/data/avalues.csv, with their sources)")
+    # the one-line answers earlier versions printed, kept for scripts that read them
+    for r in res.table.to_dict("records"):
+        if _fmt(r["a_value_kcal"]):
+            print(f"A({r['group']}) = {_fmt(r['a_value_kcal'])} kcal/mol at {r['temperature_k']:g} K ({how})")
+    print(f"\nchairqm: table {res.out / 'avalues.csv'}; report: {res.out / 'report.html'}")
+    failed = res.run.failed
+    if failed:
+        print(f"chairqm: {len(failed)} molecule(s) failed: {', '.join(failed)} (see summary.csv)", file=sys.stderr)
+        return 1
+    return 0
 
 
 def default_reference_config() -> Path:
@@ -293,13 +180,12 @@ def default_reference_config() -> Path:
 def cmd_calibrate(args, extra) -> int:
     """Run the reference set, fit computed against experimental A-values, store the calibration."""
     from . import calibration as cq_cal
-    extra = _with_profile(args, extra)
     config = args.config or default_reference_config()
     out = Path(args.out or (default_out(config) if args.refine is None
                             else Path(str(default_out(config)) + "-refined")))
     if args.refine is not None:
         config = _with_refinement(config, args.refine, out)
-    code = run_workflow(config, out, cores=args.cores, until=None, extra=extra)
+    code = run_workflow(config, out, cores=args.cores, until=None, **_run_options(args, extra))
     if not (out / "summary.csv").is_file():
         return code or 1
     cal = cq_cal.calibrate_run(out, config)
@@ -356,9 +242,12 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--cores", type=int, default=2)
     r.add_argument("--until", help="stop after this stage: " + ", ".join(available_stages()))
     r.add_argument("--profile", help="Snakemake profile: a packaged one by name (laptop, slurm) or a profile folder")
-    a = sub.add_parser("avalue", help="compute the A-value of a group, e.g. chairqm avalue \"[*]C1CC1\"")
-    a.add_argument("fragment", help="the group as SMILES with one attachment point [*]")
-    a.add_argument("--out", help="output folder (default results/avalue-<group>)")
+    r.add_argument("--verbose", action="store_true",
+                   help="show Snakemake's own output instead of one line per molecule and stage (or CHAIRQM_VERBOSE=1)")
+    a = sub.add_parser("avalue", help="compute the A-values of groups, e.g. chairqm avalue \"[*]C1CC1\" \"[*]C#N\"")
+    a.add_argument("fragment", nargs="+", help="each group as SMILES with one attachment point [*]")
+    a.add_argument("--out", help="output folder (default results/avalue-<group> for one group, results/avalues "
+                                 "for several)")
     a.add_argument("--cores", type=int, default=2)
     defaults = cq_config.settings_defaults()
     a.add_argument("--temperature", type=float, action="append",
@@ -367,12 +256,16 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--engine", choices=["tblite", "xtb-python"], help=f"default {defaults['engine']}")
     a.add_argument("--method", choices=["GFN2-xTB", "GFN1-xTB"], help=f"default {defaults['method']}")
     a.add_argument("--profile", help="Snakemake profile: a packaged one by name (laptop, slurm) or a profile folder")
+    a.add_argument("--verbose", action="store_true",
+                   help="show Snakemake's own output instead of one line per molecule and stage (or CHAIRQM_VERBOSE=1)")
     k = sub.add_parser("calibrate", help="compute the reference set and fit computed against experimental A-values")
     k.add_argument("config", nargs="?", default=None,
                    help="reference configuration (default configs/reference.yaml of the source checkout)")
     k.add_argument("--out", help="output folder (default results/<config name>)")
     k.add_argument("--cores", type=int, default=2)
     k.add_argument("--profile", help="Snakemake profile: a packaged one by name (laptop, slurm) or a profile folder")
+    k.add_argument("--verbose", action="store_true",
+                   help="show Snakemake's own output instead of one line per molecule and stage (or CHAIRQM_VERBOSE=1)")
     k.add_argument("--save", help="calibration list file to add the result to (default OUT/calibration.json)")
     k.add_argument("--refine", nargs="?", const="{}", default=None, metavar="SETTINGS",
                    help="calibrate DFT-refined values: add settings.refine to the configuration (no value: the "

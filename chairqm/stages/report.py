@@ -120,7 +120,8 @@ def write_db(plan, path="conformers.db"):
                 v = getattr(r, k)
                 if v != "" and v is not None:
                     kv[k] = float(v)
-            kv["n_imaginary"] = int(r.n_imaginary) if r.n_imaginary != "" else -1
+            # a column with an empty cell is read back as floats ("0.0")
+            kv["n_imaginary"] = int(float(r.n_imaginary)) if r.n_imaginary not in ("", None) else -1
             db.write(atoms, **kv)
     del db
     if not tmp.exists():                 # nothing written: still a valid, empty database

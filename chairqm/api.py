@@ -1,0 +1,636 @@
+"""The Python API: check a configuration, run the workflow, compute A-values — the same behaviour as the
+command line, which is a thin layer over these functions.
+
+    from chairqm import api
+    r = api.avalue("[*]C#N", temperatures_k=[298.15])
+    r.a_value_kcal, r.families                      # float, pandas DataFrame
+    run = api.run("configs/demo.yaml", "results/demo", cores=2)
+    run.summary                                     # summary.csv as a DataFrame
+    run.molecule("methylcyclohexane").families      # that molecule's families.csv
+
+Every problem a user can fix raises :class:`chairqm.errors.ChairqmError` with the message the command
+line prints after ``chairqm: error:``. A workflow that stops (Snakemake exits with an error) raises
+:class:`WorkflowError`, a ChairqmError that carries the exit code; molecules that failed inside a
+finished run are reported in the result (``RunResult.failed``), never silently dropped.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import subprocess
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable, Iterable
+
+from .errors import ChairqmError
+
+#: Seconds between two looks at the output folder for finished stages.
+PROGRESS_POLL_S = 1.0
+SNAKEMAKE_LOG = Path(".chairqm") / "snakemake.log"
+DRY_RUN_FLAGS = ("-n", "--dry-run", "--dryrun", "--summary", "--detailed-summary", "--list-changes")
+
+
+class WorkflowError(ChairqmError):
+    """The workflow stopped with an error (Snakemake's exit code in `returncode`); the message says where
+    the logs are."""
+
+    def __init__(self, message: str, returncode: int, out: Path | None = None):
+        super().__init__(message)
+        self.returncode = returncode
+        self.out = out
+
+
+# ------------------------------------------------------------------------------------ results
+
+#: Columns of the output tables that hold text: read as strings with "" for an empty cell (numbers stay
+#: floats with NaN for an empty cell). `axial` lists the axial substituents ("" = none axial).
+TEXT_COLUMNS = {"molecule", "status", "reason", "preferred_family", "additive_source", "flag_reason",
+                "calibrated_quantity", "ring_form", "orientation", "axial", "conformer", "seed", "substituent",
+                "fragment", "template", "group", "tabulated_source"}
+
+
+def _read_csv(path: Path):
+    import pandas as pd
+    header = pd.read_csv(path, nrows=0).columns
+    df = pd.read_csv(path, dtype={c: str for c in header if c in TEXT_COLUMNS})
+    for c in df.columns:
+        if c in TEXT_COLUMNS:
+            df[c] = df[c].fillna("")
+    return df
+
+
+@dataclass
+class MoleculeResult:
+    """One molecule of a finished run: its folder and its tables."""
+
+    name: str
+    folder: Path
+
+    @property
+    def families(self):
+        """families.csv: free energy and population of each ring form + orientation, per temperature."""
+        return _read_csv(self.folder / "families.csv")
+
+    @property
+    def conformers(self):
+        """conformers.csv: every conformer (failed ones with their status and reason), per temperature."""
+        return _read_csv(self.folder / "conformers.csv")
+
+    @property
+    def substituents(self):
+        return _read_csv(self.folder / "substituents.csv")
+
+
+@dataclass
+class RunResult:
+    """A run's output folder read back: `summary` (summary.csv), `failed` molecules, `molecule(name)`."""
+
+    out: Path
+    until: str | None = None
+    returncode: int = 0
+    molecules: list[str] = field(default_factory=list)
+
+    @property
+    def summary(self):
+        """summary.csv as a DataFrame (one row per molecule and temperature); an error if the run stopped
+        before the report stage (`until`)."""
+        path = self.out / "summary.csv"
+        if not path.is_file():
+            raise ChairqmError(f"{self.out} has no summary.csv: the run stopped after stage '{self.until}'"
+                               if self.until else f"{self.out} has no summary.csv: the run did not finish")
+        return _read_csv(path)
+
+    @property
+    def failed(self) -> list[str]:
+        """Names of the molecules that failed (status other than ok in summary.csv)."""
+        if not (self.out / "summary.csv").is_file():
+            return []
+        s = self.summary
+        return sorted(set(s.loc[s["status"] != "ok", "molecule"]))
+
+    @property
+    def report(self) -> Path | None:
+        p = self.out / "report.html"
+        return p if p.is_file() else None
+
+    def molecule(self, name: str) -> MoleculeResult:
+        folder = self.out / name
+        if self.molecules and name not in self.molecules or not folder.is_dir():
+            raise ChairqmError(f"no molecule {name!r} in {self.out}: the molecules are "
+                               f"{', '.join(self.molecules) or 'none'}")
+        return MoleculeResult(name, folder)
+
+
+@dataclass
+class AValueResult:
+    """The A-value of one group, computed on its monosubstituted cyclohexane.
+
+    a_value_kcal: G(axial chair) − G(equatorial chair) in kcal/mol at the first requested temperature
+    (NaN when the molecule failed; `reason` says why); `a_values_kcal` at every temperature; `families`
+    (families.csv of the molecule, every temperature); `out` the run folder; `tabulated_kcal` and
+    `tabulated_source` where the package table has the group."""
+
+    group: str
+    molecule: str
+    out: Path
+    temperatures_k: list[float]
+    a_values_kcal: dict[float, float]
+    rows: object                         # the group's rows of the A-value table (DataFrame)
+    tabulated_kcal: float | None = None
+    tabulated_source: str = ""
+    reason: str = ""
+
+    @property
+    def a_value_kcal(self) -> float:
+        return self.a_values_kcal.get(self.temperatures_k[0], math.nan)
+
+    @property
+    def families(self):
+        path = self.out / self.molecule / "families.csv"
+        if not path.is_file():
+            raise ChairqmError(f"{self.group}: no families.csv ({self.reason or 'the molecule did not finish'})")
+        return _read_csv(path)
+
+    @property
+    def conformers(self):
+        return _read_csv(self.out / self.molecule / "conformers.csv")
+
+
+@dataclass
+class AValueTable:
+    """Several groups computed in one run: `table` (one row per group and temperature, also written as
+    OUT/avalues.csv), `results` in the order asked, `result(group)`."""
+
+    out: Path
+    table: object
+    results: list[AValueResult]
+    run: RunResult
+
+    def result(self, group: str) -> AValueResult:
+        from . import avalues
+        key = avalues.canonical_fragment(group)
+        for r in self.results:
+            if r.group == key:
+                return r
+        raise ChairqmError(f"{group} was not computed in this run: the groups are "
+                           f"{', '.join(r.group for r in self.results)}")
+
+
+# ------------------------------------------------------------------------------------ checking
+
+def _as_config_path(config, out: Path | None) -> Path:
+    """A configuration given as a mapping is written to OUT/run-config.yaml (relative structure-file paths
+    made absolute against the current folder) so the workflow can read it; a path is used as it is."""
+    if isinstance(config, (str, os.PathLike)):
+        return Path(config)
+    if not isinstance(config, dict):
+        raise ChairqmError(f"the configuration must be a file path or a mapping, not {type(config).__name__}")
+    if out is None:
+        raise ChairqmError("a configuration given as a mapping needs an output folder (out=...)")
+    import copy
+
+    import yaml
+
+    from . import fileio
+    cfg = copy.deepcopy(config)
+    for m in cfg.get("molecules") or []:
+        if isinstance(m, dict) and isinstance(m.get("file"), str) and not Path(m["file"]).is_absolute():
+            m["file"] = str(Path(m["file"]).resolve())
+    Path(out).mkdir(parents=True, exist_ok=True)
+    path = Path(out) / "run-config.yaml"
+    fileio.write_text(path, yaml.safe_dump(cfg, sort_keys=False))
+    return path
+
+
+def prepare(config):
+    """Validate configuration, molecules and engine settings; return (cfg, plan). Raises ChairqmError with
+    one line per problem."""
+    from . import config as cq_config
+    from .plan import make_plan
+    cfg = cq_config.load(config) if not isinstance(config, dict) else cq_config.validate(config, base_dir=Path.cwd())
+    plan = make_plan(cfg)
+    problems = list(plan.problems)
+    try:
+        from . import engine
+    except ImportError:
+        engine = None
+    if engine is not None:
+        s = cfg["settings"]
+        try:
+            engine.check_settings(s["engine"], s["method"], s.get("solvent"))
+        except ChairqmError as exc:
+            problems.append(str(exc))
+    if not problems and cfg["settings"].get("refine") is not None:
+        try:
+            from . import refine
+            rs = refine.resolve(cfg["settings"]["refine"])
+            for m in plan.molecules:
+                elements = [a.GetSymbol() for a in m.mol.GetAtoms()]
+                try:
+                    refine.check(rs, elements, m.charge, m.multiplicity, cfg["settings"].get("solvent"))
+                except ChairqmError as exc:
+                    problems.append(f"{m.name}: refine: {exc}")
+        except ImportError as exc:
+            problems.append(f"settings.refine needs PySCF and dftd3: pip install -e '.[dft]' ({exc})")
+        except ChairqmError as exc:
+            problems.append(f"settings.refine: {exc}")
+    if problems:
+        raise ChairqmError("\n".join(problems))
+    return cfg, plan
+
+
+@dataclass
+class CheckResult:
+    """What `chairqm check` prints: the perceived molecules (`table`, text) and the settings line."""
+
+    cfg: dict
+    plan: object
+
+    @property
+    def table(self) -> str:
+        rows = [("molecule", "ring atoms", "substituents", "stereo")]
+        for m in self.plan.molecules:
+            ring = "-".join(f"{e}{i}" for e, i in zip(m.ring_elements, m.ring))
+            subs = ", ".join(f"{s.id}@{s.ring_atom} {s.fragment}" for s in m.substituents) or "none"
+            name = m.name + (" (reference)" if m.reference else "")
+            rows.append((name, ring, subs, m.stereo))
+        return format_rows(rows)
+
+    @property
+    def settings_line(self) -> str:
+        s = self.cfg["settings"]
+        return (f"{len(self.plan.molecules)} molecule(s); {s['method']} with {s['engine']}; solvent: "
+                f"{solvent_text(s.get('solvent'))}; T = {', '.join(f'{t:g}' for t in s['temperatures_k'])} K")
+
+
+def check(config) -> CheckResult:
+    """Validate a configuration (path or mapping) and perceive its molecules; compute nothing."""
+    cfg, plan = prepare(config)
+    return CheckResult(cfg, plan)
+
+
+def solvent_text(solvent) -> str:
+    solvent = solvent or {}
+    return (solvent.get("model", "") + " " + solvent.get("name", "")).strip() or "none (gas phase)"
+
+
+def format_rows(rows: list[tuple]) -> str:
+    """Left-aligned text table; the first row is the header, underlined."""
+    rows = [tuple(str(c) for c in r) for r in rows]
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    lines = ["  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in rows]
+    lines.insert(1, "  ".join("-" * w for w in widths))
+    return "\n".join(lines)
+
+
+# ------------------------------------------------------------------------------------ running
+
+def available_stages() -> list[str]:
+    """Stages a run can stop after (`until`), from the one stage registry."""
+    from . import stages
+    return stages.until_names()
+
+
+def failed_stage_targets(out: Path, plan, settings) -> list[str]:
+    """The first output of every stage that failed for a molecule in an earlier run (its failed.json):
+    Snakemake counts that stage's empty outputs as up to date, so a plain rerun would keep the molecule
+    failed. Passing these to --forcerun recomputes the failed stage and everything after it."""
+    from . import fileio, stages
+    targets = []
+    for m in plan.molecules:
+        f = out / m.name / stages.FAILURE_RECORD
+        if not f.is_file():
+            continue
+        try:
+            stage = stages.get(fileio.read_json(f)["stage"])
+        except (KeyError, ValueError, OSError):
+            continue
+        if stage.per_molecule and stage.enabled(settings):
+            targets.append(f"{m.name}/{stage.paths()[0][0]}")
+    return targets
+
+
+def resolve_profiles(extra) -> list[str]:
+    """Snakemake arguments with every `--profile X` that names a packaged profile (`laptop`, `slurm`,
+    or the source tree's old path `workflows/profiles/NAME`) and is not an existing folder replaced by
+    the packaged profile's folder; anything else is passed on unchanged."""
+    from . import workflow
+    out = list(extra)
+    for i, arg in enumerate(out):
+        value, prefix = None, ""
+        if arg == "--profile" and i + 1 < len(out):
+            value, idx = out[i + 1], i + 1
+        elif arg.startswith("--profile="):
+            value, idx, prefix = arg.split("=", 1)[1], i, "--profile="
+        if value is None or Path(value).is_dir():
+            continue
+        name = Path(value).name
+        if name in workflow.profile_names() and (Path(value).parent.as_posix() in ("", ".", "workflows/profiles")):
+            out[idx] = prefix + str(workflow.profile(name))
+    return out
+
+
+def _lock_output(out: Path):
+    """One chairqm run per output folder: an exclusive advisory lock on OUT/.chairqm/run.lock, released
+    by the kernel when the process dies, so a killed run never blocks the rerun (Snakemake's own lock
+    files would, so chairqm runs Snakemake with --nolock under this lock)."""
+    import fcntl
+    path = out / ".chairqm" / "run.lock"
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fh = open(path, "w")
+    try:
+        fcntl.flock(fh, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except OSError:
+        fh.close()
+        raise ChairqmError(f"another chairqm run is using {out}: wait for it to finish or choose another --out")
+    return fh
+
+
+def verbose_default() -> bool:
+    """CHAIRQM_VERBOSE set to anything but '', 0, no, false: show Snakemake's own output."""
+    return os.environ.get("CHAIRQM_VERBOSE", "").strip().lower() not in ("", "0", "no", "false")
+
+
+class Progress:
+    """Short progress lines while Snakemake runs: one per molecule and stage when all its output files are
+    newer than the run's start (Snakemake removes a job's outputs before running it) or its failure
+    record appears; read from the output folder, so it works the same for local and cluster jobs."""
+
+    def __init__(self, out: Path, plan, settings, until: str | None, start: float,
+                 emit: Callable[[str], None]):
+        from . import stages
+        self.out, self.start, self.emit = out, start, emit
+        last = stages.index(until) if until else len(stages.names()) - 1
+        self.watch = []          # (stage, molecule or None, the paths of its output files)
+        for s in stages.STAGES[:last + 1]:
+            if not s.enabled(settings):
+                continue
+            files = [p for p, is_folder in s.paths() if not is_folder]
+            if s.per_molecule:
+                self.watch.extend((s.name, m.name, [out / m.name / f for f in files]) for m in plan.molecules)
+            else:
+                self.watch.append((s.name, None, [out / f for f in files]))
+        self.molecules = [m.name for m in plan.molecules]
+        self.width = max([len(n) for n in self.molecules] + [len("all molecules")])
+        self.seen: set = set()
+        self.failed_seen: set = set()
+
+    def _fresh(self, path: Path) -> bool:
+        try:
+            return path.stat().st_mtime >= self.start - 1.0
+        except OSError:
+            return False
+
+    def poll(self):
+        from . import fileio, stages
+        for m in self.molecules:
+            f = self.out / m / stages.FAILURE_RECORD
+            if m not in self.failed_seen and self._fresh(f):
+                try:
+                    rec = fileio.read_json(f)
+                except (ValueError, OSError):
+                    continue
+                self.failed_seen.add(m)
+                self._line(rec.get("stage", "?"), m, f"FAILED: {rec.get('reason', '')}".strip())
+        for stage, mol, paths in self.watch:
+            if (stage, mol) in self.seen or not all(self._fresh(p) for p in paths):
+                continue
+            self.seen.add((stage, mol))
+            if mol in self.failed_seen:
+                continue
+            self._line(stage, mol, "done")
+
+    def _line(self, stage, mol, what):
+        t = int(time.time() - self.start)
+        self.emit(f"  {t // 60:3d}:{t % 60:02d}  {stage:<9} {(mol or 'all molecules'):<{self.width}}  {what}")
+
+
+def run(config, out=None, cores: int = 2, until: str | None = None, profile: str | None = None,
+        snakemake_args: Iterable[str] = (), verbose: bool | None = None,
+        progress: bool | Callable[[str], None] = True) -> RunResult:
+    """Run the workflow on a configuration (a YAML path or a mapping) into `out` (default
+    results/<config name>); returns the finished run. `until` stops after a stage; `profile` is a
+    packaged Snakemake profile name (laptop, slurm) or a profile folder; `snakemake_args` go to Snakemake
+    unchanged. By default Snakemake's own output goes to OUT/.chairqm/snakemake.log and a line per
+    molecule and stage is printed (`progress=False` for none, or a callable that takes each line);
+    `verbose=True` (or CHAIRQM_VERBOSE=1) shows Snakemake's output instead.
+
+    Raises ChairqmError for input problems and WorkflowError when the workflow stops with an error."""
+    if out is None:
+        if not isinstance(config, (str, os.PathLike)):
+            raise ChairqmError("a configuration given as a mapping needs an output folder (out=...)")
+        out = Path("results") / Path(config).stem
+    out = Path(out).resolve()
+    config_path = _as_config_path(config, out)
+    cfg, plan = prepare(config_path)
+    stages = available_stages()
+    if until is not None and until not in stages:
+        raise ChairqmError(f"--until {until}: the stages are {', '.join(stages)}")
+    extra = resolve_profiles((["--profile", str(profile)] if profile else []) + list(snakemake_args))
+    target = "all" if until is None else f"until_{until}"
+    out.mkdir(parents=True, exist_ok=True)
+    for m in plan.molecules:
+        if (out / m.name).is_symlink():
+            raise ChairqmError(f"{out / m.name} is a symbolic link: chairqm writes only inside the output folder; "
+                               "remove the link or choose another --out")
+    dry = any(a in DRY_RUN_FLAGS for a in extra)
+    verbose = verbose_default() if verbose is None else bool(verbose)
+    emit = progress if callable(progress) else (lambda line: print(line, flush=True)) if progress else None
+    lock = None if dry else _lock_output(out)      # a dry run writes nothing and needs no lock
+    from . import fileio, workflow
+    start = time.time()
+    if not dry:
+        fileio.write_json(out / ".chairqm" / "run-start.json",
+                          {"epoch": start, "iso": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "target": target})
+    retry = failed_stage_targets(out, plan, cfg["settings"])
+    if retry and not dry:
+        print(f"chairqm: retrying what failed before: {', '.join(retry)}", file=sys.stderr)
+    show = verbose or dry           # a dry run's plan is what the user asked to see
+    cmd = [sys.executable, "-m", "snakemake", target, "--snakefile", str(workflow.snakefile()), "--directory",
+           str(out), "--config", f"chairqm_config={config_path.resolve()}", "--cores", str(cores),
+           "--rerun-incomplete", "--keep-going", "--nolock", "--printshellcmds",
+           *(["--forcerun", *retry] if retry else []), *extra]
+    env = dict(os.environ)
+    env.setdefault("OMP_NUM_THREADS", "1")
+    env.setdefault("OPENBLAS_NUM_THREADS", "1")
+    env.setdefault("MKL_NUM_THREADS", "1")
+    log_path = out / SNAKEMAKE_LOG
+    try:
+        if show:
+            returncode = subprocess.run(cmd, env=env).returncode
+        else:
+            log_path.parent.mkdir(parents=True, exist_ok=True)
+            watcher = Progress(out, plan, cfg["settings"], until, start, emit) if emit else None
+            if emit:
+                emit(f"chairqm: {len(plan.molecules)} molecule(s) into {out} on {cores} core(s); "
+                     f"Snakemake's log: {log_path} (--verbose shows it here)")
+            with open(log_path, "w") as log:
+                proc = subprocess.Popen(cmd, env=env, stdout=log, stderr=subprocess.STDOUT)
+                try:
+                    while True:
+                        try:
+                            returncode = proc.wait(timeout=PROGRESS_POLL_S)
+                            break
+                        except subprocess.TimeoutExpired:
+                            if watcher:
+                                watcher.poll()
+                except BaseException:
+                    proc.terminate()
+                    try:
+                        proc.wait(timeout=30)
+                    except subprocess.TimeoutExpired:
+                        proc.kill()
+                    raise
+            if watcher:
+                watcher.poll()
+                if not watcher.seen and not watcher.failed_seen and returncode == 0:
+                    emit("  nothing to redo: every stage is up to date")
+    finally:
+        if lock is not None:
+            lock.close()
+    if returncode != 0:
+        msg = f"the workflow stopped with an error (exit {returncode}); logs are in {out}/<molecule>/logs/"
+        if not show:
+            msg += f" and {log_path}:\n" + _log_tail(log_path)
+        raise WorkflowError(msg, returncode, out)
+    return RunResult(out, until=until, returncode=0, molecules=plan.names())
+
+
+def _log_tail(path: Path, n: int = 15) -> str:
+    """The last lines of Snakemake's log that say what went wrong (its error block, or the end)."""
+    try:
+        lines = path.read_text(errors="replace").splitlines()
+    except OSError:
+        return ""
+    for i, line in enumerate(lines):
+        if line.startswith(("Error", "WorkflowError", "MissingInputException", "SyntaxError")):
+            return "\n".join("  " + l for l in lines[i:i + n])
+    return "\n".join("  " + l for l in lines[-n:])
+
+
+# ------------------------------------------------------------------------------------ A-values
+
+def _solvent_block(solvent):
+    """None, 'MODEL:NAME' (e.g. 'alpb:water') or {model, name} -> the configuration's solvent block."""
+    if solvent in (None, "", "none", "gas"):
+        return None
+    if isinstance(solvent, dict):
+        return dict(solvent)
+    model, _, name = str(solvent).partition(":")
+    if not name:
+        raise ChairqmError(f"--solvent {solvent!r}: write MODEL:NAME, e.g. alpb:water or gbsa:chloroform")
+    return {"model": model.lower(), "name": name}
+
+
+def avalue_molecule_name(fragment: str) -> str:
+    from .plan import _slug
+    return _slug(fragment).replace("ref-", "avalue-", 1)
+
+
+def avalues(groups: Iterable[str], temperatures_k=None, solvent=None, out=None, cores: int = 2,
+            engine: str | None = None, method: str | None = None, **run_options) -> AValueTable:
+    """A-values of several groups (SMILES with one attachment point [*]) in one run: each group's
+    monosubstituted cyclohexane goes through the whole workflow. Returns the table (also written to
+    OUT/avalues.csv) and one AValueResult per group. Settings not given take the schema's defaults."""
+    import pandas as pd
+
+    from . import additivity
+    from . import avalues as tab
+    from . import config as cq_config
+    from . import fileio
+    frags = []
+    for g in groups:
+        f = tab.canonical_fragment(g)
+        if f not in frags:
+            frags.append(f)
+    if not frags:
+        raise ChairqmError("give at least one group, e.g. \"[*]C1CC1\"")
+    names = [avalue_molecule_name(f) for f in frags]
+    if out is None:
+        out = Path("results") / (names[0] if len(frags) == 1 else "avalues")
+    out = Path(out)
+    given = {"temperatures_k": list(temperatures_k) if temperatures_k else None, "engine": engine, "method": method}
+    settings = {k: v for k, v in given.items() if v is not None}
+    settings["analysis"] = {"reference_groups": False}
+    block = _solvent_block(solvent)
+    if block is not None:
+        settings["solvent"] = block
+    title = f"A-value of {frags[0]}" if len(frags) == 1 else f"A-values of {len(frags)} groups"
+    cfg = {"project": title,
+           "molecules": [{"name": n, "smiles": additivity.reference_smiles(f),
+                          "note": f"monosubstituted cyclohexane of {f}"} for n, f in zip(names, frags)],
+           "settings": settings}
+    out.mkdir(parents=True, exist_ok=True)
+    import yaml
+    cfg_path = out / "avalue-config.yaml"
+    fileio.write_text(cfg_path, yaml.safe_dump(cfg, sort_keys=False))
+    result = run(cfg_path, out, cores=cores, **run_options)
+    summary = result.summary
+    used = {**cq_config.settings_defaults(), **settings}
+    temps = [float(t) for t in used["temperatures_k"]]
+    rows, results = [], []
+    for name, frag in zip(names, frags):
+        mine = summary[summary["molecule"] == name]
+        tabrow = tab.lookup(frag)
+        tab_kcal = float(tabrow["a_value_kcal"]) if tabrow is not None else None
+        tab_src = str(tabrow["source"]) if tabrow is not None else ""
+        fam_path = out / name / "families.csv"
+        fam = _read_csv(fam_path) if fam_path.is_file() else None
+        values, reason = {}, ""
+        for r in mine.itertuples():
+            t = float(r.temperature_k)
+            ok = r.status == "ok" and _num(r.a_value_kcal) is not None
+            a = _num(r.a_value_kcal) if ok else None
+            if a is not None:
+                values[t] = a
+            else:
+                reason = r.reason or r.flag_reason or "no A-value"
+            eq = ax = None
+            if fam is not None and ok:
+                f_t = fam[(fam["temperature_k"] - t).abs() < 1e-6]
+                chairs = f_t[f_t["ring_form"] == "chair"]
+                is_ax = chairs["axial"] != ""
+                eq, ax = float(chairs.loc[~is_ax, "population"].sum()), float(chairs.loc[is_ax, "population"].sum())
+            rows.append({"group": frag, "molecule": name, "temperature_k": t, "status": r.status,
+                         "a_value_kcal": a, "calibrated_kcal": _num(getattr(r, "calibrated_kcal", None)),
+                         "interval_low_kcal": _num(getattr(r, "interval_low_kcal", None)),
+                         "interval_high_kcal": _num(getattr(r, "interval_high_kcal", None)),
+                         "tabulated_kcal": tab_kcal, "tabulated_source": tab_src,
+                         "equatorial_chair_population": eq, "axial_chair_population": ax,
+                         "other_ring_forms_population": _num(r.twist_boat_population) if ok else None,
+                         "reason": "" if ok else reason})
+        results.append(AValueResult(group=frag, molecule=name, out=out, temperatures_k=temps,
+                                    a_values_kcal=values, rows=None, tabulated_kcal=tab_kcal,
+                                    tabulated_source=tab_src, reason=reason))
+    table = pd.DataFrame(rows, columns=AVALUE_COLUMNS)
+    for r in results:
+        r.rows = table[table["group"] == r.group].reset_index(drop=True)
+    from . import fileio as _f
+    _f.write_text(out / "avalues.csv", table.to_csv(index=False, float_format=f"%.{CSV_DIGITS}g"))
+    return AValueTable(out=out, table=table, results=results, run=result)
+
+
+#: Significant digits of the numbers in avalues.csv (enough for scripts, far below what the method can tell).
+CSV_DIGITS = 6
+AVALUE_COLUMNS = ["group", "molecule", "temperature_k", "status", "a_value_kcal", "calibrated_kcal",
+                  "interval_low_kcal", "interval_high_kcal", "tabulated_kcal", "tabulated_source",
+                  "equatorial_chair_population", "axial_chair_population", "other_ring_forms_population", "reason"]
+
+
+def _num(v) -> float | None:
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return None
+    return None if math.isnan(f) else f
+
+
+def avalue(group: str, temperatures_k=None, solvent=None, out=None, cores: int = 2, **options) -> AValueResult:
+    """The A-value of one group (SMILES with one attachment point, e.g. "[*]C#N"), computed on its
+    monosubstituted cyclohexane with the whole workflow. `solvent`: None (gas phase), 'MODEL:NAME' or
+    {model, name}; `out` defaults to results/avalue-<group>. Returns an AValueResult."""
+    return avalues([group], temperatures_k=temperatures_k, solvent=solvent, out=out, cores=cores,
+                   **options).results[0]
