@@ -47,6 +47,7 @@ from rdkit.Geometry import Point3D
 from . import chem, rotamers, symmetry
 from . import ring as ringgeo
 from .errors import ChairqmError
+from .molecule import is_trigonal_exocyclic
 
 RDLogger.DisableLog("rdApp.*")
 
@@ -223,6 +224,12 @@ def _skeleton(ctx, X, choice) -> dict:
     pos = {}
     for k, a in enumerate(ctx.ring):
         pos[a] = X[k]
+        if len(ctx.exo[k]) == 1 and is_trigonal_exocyclic(ctx.mol, a, ctx.exo[k][0]):
+            # C=O, C=CH2: in the plane of the ring atom and its two ring neighbours, on their bisector
+            d = (X[k] - X[k - 1]) + (X[k] - X[(k + 1) % 6])
+            e = ctx.exo[k][0]
+            pos[e] = np.round(X[k] + _bond_length(ctx.mol, a, e) * d / np.linalg.norm(d), DECIMALS_TEMPLATE)
+            continue
         d1, d2 = ringgeo.exocyclic_slots(X, list(range(6)), k)
         up, down = (d1, d2) if d1[2] >= d2[2] else (d2, d1)
         slots = (down, up) if choice[k] else (up, down)
@@ -254,6 +261,8 @@ def _choices(ctx):
             fixed.append(k)
         elif len(e) == 2 and ctx.ranks[e[0]] == ctx.ranks[e[1]]:
             continue
+        elif len(e) == 1 and is_trigonal_exocyclic(ctx.mol, a, e[0]):
+            continue                    # C=O, C=CH2: the optimisation puts it in the ring atom's plane
         else:
             free.append(k)
     return free, fixed
@@ -325,8 +334,11 @@ def _embed(ctx, pos, seed):
                         if ctx.mol.GetAtomWithIdx(i).GetAtomicNum() > 1 or i in ctx.ring}]
     for cmap in attempts:
         for extra in range(3):
-            cid = AllChem.EmbedMolecule(ctx.mol, coordMap=cmap, randomSeed=seed + extra, useRandomCoords=True,
-                                        enforceChirality=True, maxAttempts=50)
+            try:
+                cid = AllChem.EmbedMolecule(ctx.mol, coordMap=cmap, randomSeed=seed + extra, useRandomCoords=True,
+                                            enforceChirality=True, maxAttempts=50)
+            except RuntimeError:        # RDKit's optimiser can stop on an impossible coordinate map
+                cid = -1
             if cid < 0:
                 continue
             X = np.array(ctx.mol.GetConformer(cid).GetPositions())

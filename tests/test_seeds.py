@@ -425,3 +425,16 @@ def test_a_template_that_cannot_be_built_is_reported(monkeypatch):
     # the table still lists every seed
     df = seed_stage.seeds_table(seeds)
     assert len(df) == len(seeds) and set(df["status"]) >= {"failed"}
+
+
+def test_ring_ketone_and_rings_in_groups_are_seeded():
+    """Cyclohexanone's C=O lies in its ring atom's plane (no up/down choice, textbook sp2 geometry), and a
+    ring inside a group is seeded in both of its chairs (its link equatorial and axial on it)."""
+    from chairqm.molecule import perceive
+    p = perceive({"name": "k", "smiles": "Cl[C@@H]1CCCCC1=O"})[0]
+    found = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
+    kept = [s for s in found if s.status == "ok"]
+    assert sorted(s.orientation for s in kept) == ["s1=axial", "s1=equatorial"]
+    p = perceive({"name": "b", "smiles": "C1CCC(CC1)C1CCCCC1"})[0]
+    found = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
+    assert {s.other_rings for s in found if s.status == "ok"} == {"r2=chair:axial", "r2=chair:equatorial"}
