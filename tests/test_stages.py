@@ -251,3 +251,12 @@ def test_no_stage_opens_another_stages_work_folder():
         src = Path(s.module.__file__).read_text()
         used = set(re.findall(r'"work"\s*/\s*"(\w+)"', src)) | set(re.findall(r"work/(\w+)", src))
         assert used <= own.get(s.name, set()), (s.name, used)
+
+
+def test_the_first_failure_stays_the_recorded_cause(tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    settings = cq_config.validate({"molecules": [{"name": "m", "smiles": "C1CCCCC1"}]})["settings"]
+    runner.record_failure("seeds", "m", settings, "embedding broke")
+    runner.record_failure("thermo", "m", settings, "empty input")
+    assert runner.failure("m") == {"stage": "seeds", "reason": "embedding broke"}
+    assert (tmp_path / "m" / "thermo.csv").is_file()            # the later stage's outputs are still written

@@ -63,7 +63,11 @@ def clear_stale_failure(stage: str, name: str) -> None:
 
 
 def record_failure(stage: str, name: str, settings: dict, message: str) -> None:
-    fileio.write_json(Path(name) / FAILURE_RECORD, {"stage": stage, "reason": message})
+    """Write the stage's empty outputs and the failure record; a failure of an earlier stage stays the
+    recorded one (it is the cause; a later stage may break only because its input is empty)."""
+    earlier = failure(name)
+    if earlier is None or earlier.get("stage") not in names() or index(earlier["stage"]) >= index(stage):
+        fileio.write_json(Path(name) / FAILURE_RECORD, {"stage": stage, "reason": message})
     get(stage).write_empty(name, settings, message)
 
 
