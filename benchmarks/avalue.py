@@ -5,9 +5,11 @@ with the physical floor (the gradients of two chair optimisations and two Hessia
 Each group's monosubstituted cyclohexane (the configuration chairqm.api.avalues writes) runs through
 `chairqm run CONFIG --out FRESH --cores N` once per variant, in a fresh folder (nothing cached):
 
-- ``all-hessians``: ``thermo.frequency_window_kcal: all`` (every minimum gets its Hessian: the old path);
-- ``default``: the schema's defaults (Hessians only within the automatic window and for each chair
-  family's lowest conformer).
+- ``before``: every minimum gets its Hessian (``thermo.frequency_window_kcal: all``) and the previous
+  default optimiser (``optimize.optimizer: precon-lbfgs``): the path before issue 17;
+- ``window``: the previous optimiser, Hessians only within the automatic window (and each chair family's
+  lowest conformer);
+- ``default``: the schema's defaults (the window and the model-Hessian BFGS, ``bfgs-model``).
 
 Columns: wall s (the whole command), engine s (inside GFN2-xTB, minima + thermo stages, summed over
 worker processes), gradient calls (minima + thermo), of which Hessian gradients, wall/engine, the A-value
@@ -16,6 +18,15 @@ worker processes), gradient calls (minima + thermo), of which Hessian gradients,
 
 Full run (≈ 10 min on 2 cores):  nice -n 10 python benchmarks/avalue.py --json results/bench/avalue.json
 CI subset (one small group, default variant only):  python benchmarks/avalue.py --quick
+
+Reference-set comparison (--reference CONFIG --out DIR): the whole configuration with every Hessian
+(DIR/all), then a copy rerun with the default window (DIR/window: optimisations and Hessian displacements
+come from the copied caches, so both variants rest on the same minima); per molecule the largest change
+of a conformer or family population above 1 %, the change of the A-value (every temperature), the
+Hessians computed, and the gradient calls a fresh run of each variant makes (minima + the Hessians and
+mode-following re-optimisations of the frequency-checked conformers, read from the per-conformer records),
+and b = RT ln(d_i/d_0) − Δ(G − E)_i of every conformer of the full run (chairqm.frequency_window).
+  nice -n 10 python benchmarks/avalue.py --reference configs/reference.yaml --out results/bench/window
 """
 
 from __future__ import annotations
@@ -32,7 +43,9 @@ import _common as C
 
 GROUPS = ["[*]C#N", "[*]OC(F)(F)F", "[*]N(C)C", "[*]C1CCC1"]      # the groups of issue 17
 QUICK = ["[*]F"]
-VARIANTS = {"all-hessians": {"thermo": {"frequency_window_kcal": "all"}}, "default": {}}
+VARIANTS = {"before": {"thermo": {"frequency_window_kcal": "all"}, "optimize": {"optimizer": "precon-lbfgs"}},
+            "window": {"optimize": {"optimizer": "precon-lbfgs"}},
+            "default": {}}
 
 
 def config_for(group: str, variant: dict) -> dict:
@@ -93,6 +106,133 @@ def measure(group: str, variant: dict, cores: int, keep: Path | None = None) -> 
         return row
 
 
+def fresh_gradients(mol: Path) -> dict:
+    """Gradient calls a fresh run makes for molecule folder `mol`: the minima stage's, and the Hessians
+    (every round, computed or read from the cache) and mode-following re-optimisations of the
+    frequency-checked conformers, from the per-conformer records."""
+    minima = json.loads((mol / "minima.json").read_text())
+    thermo = json.loads((mol / "thermo.json").read_text())
+    hess = reopt = n = 0
+    for c in thermo["conformers"]:
+        if not c.get("frequency_checked", True):
+            continue
+        rec = json.loads((mol / "work" / "thermo" / f"{c['conformer']}.json").read_text())
+        hess += sum(h["gradient_calls"] + h["reused"] for h in rec["proof"].get("hessians", []))
+        reopt += rec.get("reopt_gradient_calls", 0)
+        n += 1
+    return {"minima": int(minima["gradient_calls"]), "hessian": int(hess), "reopt": int(reopt), "hessians": n,
+            "conformers": len(thermo["conformers"]), "total": int(minima["gradient_calls"] + hess + reopt)}
+
+
+def brackets(mol: Path) -> list[dict]:
+    """b_i = RT ln(d_i/d_0) − [(G_i − E_i) − (G_0 − E_0)] (kcal/mol) of every counted conformer at every
+    temperature, 0 = the lowest electronic energy (chairqm.frequency_window's margin must cover it)."""
+    import math
+
+    import pandas as pd
+
+    from chairqm.units import KCAL_PER_HARTREE, R_KCAL
+    thermo = json.loads((mol / "thermo.json").read_text())
+    deg = {c["conformer"]: c["degeneracy"] for c in thermo["conformers"]}
+    df = pd.read_csv(mol / "conformers.csv", keep_default_na=False)
+    df = df[(df.status == "ok") & (df.population != "")]
+    out = []
+    for t, g in df.groupby("temperature_k"):
+        e, gg = g.energy_hartree.astype(float), g.g_hartree.astype(float)
+        i0 = e.idxmin()
+        c0 = g.loc[i0, "conformer"]
+        for i in g.index:
+            cid = g.loc[i, "conformer"]
+            corr = ((gg[i] - e[i]) - (gg[i0] - e[i0])) * KCAL_PER_HARTREE
+            out.append({"molecule": mol.name, "conformer": cid, "temperature_k": float(t),
+                        "ring_form": g.loc[i, "ring_form"], "de_kcal": (e[i] - e[i0]) * KCAL_PER_HARTREE,
+                        "population": float(g.loc[i, "population"]),
+                        "b_kcal": R_KCAL * float(t) * math.log(deg[cid] / deg[c0]) - corr})
+    return out
+
+
+def compare_reference(config: Path, out: Path, cores: int) -> int:
+    import shutil
+
+    import pandas as pd
+    import yaml
+    out.mkdir(parents=True, exist_ok=True)
+    base = yaml.safe_load(Path(config).read_text())
+    runs = {}
+    for label, window in (("all", "all"), ("window", None)):
+        cfg = json.loads(json.dumps(base))
+        th = cfg.setdefault("settings", {}).setdefault("thermo", {})
+        if window is None:
+            th.pop("frequency_window_kcal", None)
+        else:
+            th["frequency_window_kcal"] = window
+        path = out / f"{label}.yaml"
+        path.write_text(yaml.safe_dump(cfg, sort_keys=False))
+        dest = out / label
+        if label == "window" and not dest.exists():
+            shutil.copytree(runs["all"], dest)
+        t0 = time.perf_counter()
+        proc = subprocess.run([C.CHAIRQM, "run", str(path), "--out", str(dest), "--cores", str(cores)],
+                              capture_output=True, text=True)
+        print(f"# {label}: exit {proc.returncode}, {time.perf_counter() - t0:.0f} s", file=sys.stderr, flush=True)
+        runs[label] = dest
+    rows, bs = [], []
+    sa = pd.read_csv(runs["all"] / "summary.csv", keep_default_na=False)
+    sw = pd.read_csv(runs["window"] / "summary.csv", keep_default_na=False)
+    for m in sorted(set(sa.molecule)):
+        ma, mw = runs["all"] / m, runs["window"] / m
+        if not (ma / "thermo.json").is_file() or not (mw / "conformers.csv").is_file():
+            rows.append({"molecule": m, "status": "missing"})
+            continue
+        ca = pd.read_csv(ma / "conformers.csv", keep_default_na=False)
+        cw = pd.read_csv(mw / "conformers.csv", keep_default_na=False)
+        pops = ca.merge(cw, on=["conformer", "temperature_k"], suffixes=("_a", "_w"))
+        pa = pd.to_numeric(pops.population_a, errors="coerce").fillna(0.0)
+        pw = pd.to_numeric(pops.population_w, errors="coerce").fillna(0.0)
+        big = (pa > 0.01) | (pw > 0.01)
+        fa = pd.read_csv(ma / "families.csv", keep_default_na=False)
+        fw_ = pd.read_csv(mw / "families.csv", keep_default_na=False)
+        fam = fa.merge(fw_, on=["temperature_k", "ring_form", "orientation"], suffixes=("_a", "_w"), how="outer")
+        fpa, fpw = fam.population_a.astype(float).fillna(0.0), fam.population_w.astype(float).fillna(0.0)
+        fbig = (fpa > 0.01) | (fpw > 0.01)
+        ra, rw = sa[sa.molecule == m], sw[sw.molecule == m]
+        da = [abs(float(x) - float(y)) for x, y in zip(ra.a_value_kcal, rw.a_value_kcal) if x != "" and y != ""]
+        dg = [abs(float(x) - float(y)) for x, y in zip(ra.chair_dg_kcal, rw.chair_dg_kcal) if x != "" and y != ""]
+        ga, gw = fresh_gradients(ma), fresh_gradients(mw)
+        unchecked = cw[cw.frequency_checked.astype(str) == "False"]
+        rows.append({"molecule": m, "status": "ok", "hessians": f"{gw['hessians']}/{ga['hessians']}",
+                     "max_dpop_conformer_pp": 100 * float((pa - pw)[big].abs().max() if big.any() else 0.0),
+                     "max_dpop_family_pp": 100 * float((fpa - fpw)[fbig].abs().max() if fbig.any() else 0.0),
+                     "max_unchecked_pop_pct": 100 * float(pd.to_numeric(unchecked.population, errors="coerce").max()
+                                                          if len(unchecked) else 0.0),
+                     "dA_kcal": max(da) if da else float("nan"), "dgap_kcal": max(dg) if dg else float("nan"),
+                     "grad_all": ga["total"], "grad_window": gw["total"],
+                     "hessian_grad_all": ga["hessian"], "hessian_grad_window": gw["hessian"]})
+        bs.extend(brackets(ma))
+    info = C.machine()
+    C.print_machine(info)
+    print(f"# {config}: every Hessian (all) against the default window (window), same minima; "
+          "populations above 1 % in either run; pp = percentage points")
+    print(C.table(rows, floatfmt=".3g"))
+    ok = [r for r in rows if r.get("status") == "ok"]
+    tot_a, tot_w = sum(r["grad_all"] for r in ok), sum(r["grad_window"] for r in ok)
+    print(f"\n# totals over {len(ok)} molecules: gradient calls {tot_a} (all) -> {tot_w} (window), "
+          f"ratio {tot_w / tot_a:.3f}; Hessian gradients {sum(r['hessian_grad_all'] for r in ok)} -> "
+          f"{sum(r['hessian_grad_window'] for r in ok)}")
+    print(f"# largest population change above 1 %: conformer {max(r['max_dpop_conformer_pp'] for r in ok):.3f} pp, "
+          f"family {max(r['max_dpop_family_pp'] for r in ok):.3f} pp; largest A-value change "
+          f"{max((r['dA_kcal'] for r in ok if r['dA_kcal'] == r['dA_kcal']), default=float('nan')):.4f} kcal/mol; "
+          f"largest chair-gap change {max((r['dgap_kcal'] for r in ok if r['dgap_kcal'] == r['dgap_kcal']), default=float('nan')):.4f} kcal/mol; "
+          f"largest population of a conformer without its own Hessian "
+          f"{max(r['max_unchecked_pop_pct'] for r in ok):.4f} %")
+    top = sorted(bs, key=lambda r: -r["b_kcal"])[:5]
+    print(f"# b = RT ln(d_i/d_0) - delta(G - E)_i over {len(bs)} conformer-temperatures of the full run: largest "
+          + "; ".join(f"{r['b_kcal']:.2f} ({r['molecule']} {r['conformer']} {r['ring_form']}, dE {r['de_kcal']:.2f})"
+                      for r in top))
+    C.save_json(out / "comparison.json", {"machine": info, "rows": rows, "brackets": bs})
+    return 0
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="one small group, default settings only")
@@ -100,7 +240,11 @@ def main(argv=None) -> int:
     ap.add_argument("--groups", default=None, help="comma-separated groups (default: the issue's four)")
     ap.add_argument("--variants", default=None, help=f"comma-separated, from {', '.join(VARIANTS)}")
     ap.add_argument("--json", default=None, help="also write the results to this JSON file")
+    ap.add_argument("--reference", default=None, help="a configuration: compare every Hessian against the window")
+    ap.add_argument("--out", default="results/bench/window", help="output folder of --reference")
     args = ap.parse_args(argv)
+    if args.reference:
+        return compare_reference(Path(args.reference), Path(args.out), args.cores)
     groups = args.groups.split(",") if args.groups else (QUICK if args.quick else GROUPS)
     variants = args.variants.split(",") if args.variants else (["default"] if args.quick else list(VARIANTS))
     info = C.machine()

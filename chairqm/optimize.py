@@ -5,31 +5,31 @@ default (= 9.7e-5 Eh/bohr), re-evaluated by the engine on the final geometry wha
 Step bound: ``maxstep`` Å, the largest displacement of any atom in one step (ASE's ``maxstep``; for
 geomeTRIC its maximum trust radius applied to the largest atomic displacement, ``usedmax``).
 
-Choice of the default optimiser, by measurement (this machine, 2 cores shared; tblite GFN2-xTB, gas phase,
-fmax 0.005 eV/Å, maxstep 0.2 Å) from MMFF94 geometries of nine conformers: methylcyclohexane equatorial,
-axial and twist-boat; methoxycyclohexane equatorial and axial; isopropylcyclohexane equatorial and axial;
-cyclohexane twist-boat; a menthol chair.  All runs converged, kept their bonds and their ring form
-(chair stayed chair, twist-boat stayed twist-boat; ring torsions moved ≤ 6.2° from MMFF94), and the
-final energies of one conformer agreed across optimisers within 0.006 kcal/mol.
+Choice of the default optimiser, by measurement (benchmarks/optimizers.py, docs/benchmarks.md part c;
+this machine, 2 cores shared, load average 11; tblite GFN2-xTB, gas phase, fmax 0.005 eV/Å, maxstep
+0.2 Å) from the 60 kept seeds (MMFF94 geometries) of methyl-, isopropyl-, methoxy- and
+tert-butylcyclohexane, cis-1,3-dimethylcyclohexane and 2-methoxytetrahydropyran, in one run:
 
-    optimizer         gradient calls: median (range), total   wall time, 9 conformers (engine part)
-    geometric (TRIC)         11 (8–17),     99                      8.7 s (1.1 s)
-    precon-lbfgs             35 (21–71),   356                      6.5 s (3.8 s)
-    lbfgs                    38 (25–119),  535                      6.9 s (5.6 s)
-    bfgs                     38 (25–119),  535                      6.7 s (5.4 s)
-    bfgs-linesearch          46 (29–111),  543                      7.6 s (6.4 s)
+    optimizer         gradient calls: median, 90th percentile, max, total   engine s   wall s
+    bfgs-model (default)          11,  53,  73,  1053                        23.2       58.0
+    precon-lbfgs                  47,  68, 124,  2969                        58.3       93.4
+    geometric                     76, 108, 195,  4856                        99.0      122.0
 
-(wall: best of 3 runs each.)  geomeTRIC's translation-rotation internal coordinates [Wang, Song,
-J. Chem. Phys. 2016, 144, 214108] need 3–5× fewer gradients, but each of its steps costs ≈ 0.08 s of
-Python, about seven GFN2-xTB gradients (≈ 11 ms each here, ASE overhead included) of these 20–30-atom
-molecules, so it is the slowest here.
-PreconLBFGS with ASE's Exp preconditioner [Packwood et al., J. Chem. Phys. 2016, 144, 164109] needs a
-third fewer gradients than L-BFGS (half on floppy substituents: isopropyl 58 vs 107, menthol 71 vs 119)
-and was fastest overall, so it is the default (``'auto'``).  L-BFGS and BFGS took identical paths
-(L-BFGS with full memory reproduces BFGS).  From these totals geomeTRIC
-becomes the faster choice once a gradient costs more than ≈ 20 ms (larger molecules, slower engines):
-pick ``optimizer='geometric'`` then.  If an optimiser itself raises (not the engine),
-the run is repeated once with L-BFGS and that is recorded in ``fallback``.  No constraints are added.
+All converged. ``bfgs-model`` is ASE's BFGS started from a model Hessian (chairqm.model_hessian:
+stretches, bends and torsions with the distance-decaying force constants of Lindh et al., Chem. Phys.
+Lett. 1995, 241, 423) instead of a multiple of the unit matrix: the soft torsions and bends are right in
+the first step, which is what internal-coordinate optimisers gain, with none of their per-step coordinate
+work. It needs a third of the gradients of PreconLBFGS [ASE's Exp preconditioner, Packwood et al.,
+J. Chem. Phys. 2016, 144, 164109] and 0.62 of its wall time, so it is the default (``'auto'``). On 56 of
+the 60 seeds all three reached the same minimum (|ΔE| ≤ 0.01 kcal/mol); on four eclipsed-methoxy seeds of
+2-methoxytetrahydropyran the other two stopped 3.1–5.9 kcal/mol higher (at saddle points, which the
+thermo stage would have had to follow downhill) and bfgs-model went on to the lower minimum.
+geomeTRIC's translation-rotation internal coordinates [Wang, Song, J. Chem. Phys. 2016, 144, 214108]
+needed more gradients than either here and costs ≈ 0.08 s of Python per step; pick it by name if a
+gradient is very expensive. Earlier measurements (nine conformers): PreconLBFGS needed a third fewer
+gradients than L-BFGS/BFGS, which take identical paths (L-BFGS with full memory reproduces BFGS).
+If an optimiser itself raises (not the engine), the run is repeated once with L-BFGS and that is
+recorded in ``fallback``.  No constraints are added.
 
 SCF fallback: if the engine fails (SCF not converged, or any error from the calculator) at the
 requested electronic temperature, the conformer is pre-optimised from its start geometry at each
@@ -59,8 +59,8 @@ from chairqm.engine import CountingCalculator
 from chairqm.errors import ChairqmError
 from chairqm.units import BOHR_A, HARTREE_EV
 
-OPTIMIZERS = ("geometric", "bfgs-linesearch", "precon-lbfgs", "lbfgs", "bfgs")
-DEFAULT_OPTIMIZER = "precon-lbfgs"
+OPTIMIZERS = ("bfgs-model", "geometric", "bfgs-linesearch", "precon-lbfgs", "lbfgs", "bfgs")
+DEFAULT_OPTIMIZER = "bfgs-model"
 FALLBACK_TEMPERATURES = (1000.0, 3000.0)
 BOND_SCALE = 1.2  # bonded if d < 1.2 × (r_i + r_j), Cordero radii: common practice for organic molecules
 
@@ -157,6 +157,14 @@ def _run_geometric(atoms: Atoms, fmax: float, max_steps: int, maxstep: float) ->
 
 
 def _run_ase(name: str, atoms: Atoms, fmax: float, max_steps: int, maxstep: float) -> int:
+    if name == "bfgs-model":
+        from ase.optimize import BFGS
+
+        from chairqm.model_hessian import model_hessian
+        opt = BFGS(atoms, logfile=None, maxstep=maxstep)
+        opt.H0 = model_hessian(atoms)           # instead of 70 eV/Å² × unit matrix (chairqm.model_hessian)
+        opt.run(fmax=fmax, steps=max_steps)
+        return int(opt.nsteps)
     if name == "bfgs":
         from ase.optimize import BFGS as cls
     elif name == "lbfgs":

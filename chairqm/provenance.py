@@ -80,8 +80,21 @@ def _thermo_record_settings(block):
     return {k: v for k, v in dict(block).items() if k != "frequency_window_kcal"}
 
 
+def _optimize_record_settings(block):
+    """The optimisation settings with 'auto' replaced by the optimiser it stands for, so a record made
+    under an earlier default is not reused when the default changes."""
+    if block is None:
+        return None
+    from .optimize import _canonical_optimizer
+    b = dict(block)
+    if "optimizer" in b:
+        b["optimizer"] = _canonical_optimizer(b["optimizer"])
+    return b
+
+
 #: Per-record views of a setting: the part of it that changes one conformer's record.
-_RECORD_VIEW = {"refine": _refine_energy_settings, "thermo": _thermo_record_settings}
+_RECORD_VIEW = {"refine": _refine_energy_settings, "thermo": _thermo_record_settings,
+                "optimize": _optimize_record_settings}
 
 
 def record_settings(stage: str, settings: dict) -> dict:
