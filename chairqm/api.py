@@ -608,13 +608,10 @@ def avalues(groups: Iterable[str], temperatures_k=None, solvent=None, out=None, 
     table = pd.DataFrame(rows, columns=AVALUE_COLUMNS)
     for r in results:
         r.rows = table[table["group"] == r.group].reset_index(drop=True)
-    from . import fileio as _f
-    _f.write_text(out / "avalues.csv", table.to_csv(index=False, float_format=f"%.{CSV_DIGITS}g"))
+    fileio.write_csv(out / "avalues.csv", table, significant_digits=fileio.SUMMARY_SIGNIFICANT_DIGITS)
     return AValueTable(out=out, table=table, results=results, run=result)
 
 
-#: Significant digits of the numbers in avalues.csv (enough for scripts, far below what the method can tell).
-CSV_DIGITS = 6
 AVALUE_COLUMNS = ["group", "molecule", "temperature_k", "status", "a_value_kcal", "calibrated_kcal",
                   "interval_low_kcal", "interval_high_kcal", "tabulated_kcal", "tabulated_source",
                   "equatorial_chair_population", "axial_chair_population", "other_ring_forms_population", "reason"]

@@ -41,8 +41,22 @@ def write_json(path, obj, fsync: bool = True) -> None:
     write_text(path, json.dumps(obj, indent=1, sort_keys=True, default=_default) + "\n", fsync=fsync)
 
 
-def write_csv(path, frame) -> None:
-    write_text(path, frame.to_csv(index=False, lineterminator="\n"))
+#: Significant digits of the numbers in the CSV files chairqm writes (README, "What lands in the output
+#: folder"): enough for absolute energies in hartree to 1e-9 Eh, where Python's shortest round-trip form
+#: prints 16-17 digits of noise. summary.csv and avalues.csv use SUMMARY_SIGNIFICANT_DIGITS.
+CSV_SIGNIFICANT_DIGITS = 12
+SUMMARY_SIGNIFICANT_DIGITS = 8
+
+
+def write_csv(path, frame, significant_digits: int = CSV_SIGNIFICANT_DIGITS) -> None:
+    """Write a DataFrame as CSV (atomically) with every float to `significant_digits` significant digits,
+    also floats inside columns of mixed type; integers, text and empty cells unchanged."""
+    fmt = f"%.{int(significant_digits)}g"
+    df = frame.copy()
+    for c in df.columns:
+        if df[c].dtype == object:
+            df[c] = [fmt % v if isinstance(v, float) and v == v else v for v in df[c]]
+    write_text(path, df.to_csv(index=False, lineterminator="\n", float_format=fmt))
 
 
 def read_json(path):

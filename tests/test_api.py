@@ -207,3 +207,20 @@ def test_avalue_several_groups_one_table_and_csv(tmp_path):
     res = api.avalues(groups, out=out, progress=False)
     assert res.result("[*]C").a_value_kcal == pytest.approx(me["a_value_kcal"], abs=1e-5)
     assert not res.result("[*]C").families.empty
+
+
+def test_csv_numbers_carry_the_documented_significant_digits(tmp_path):
+    """fileio.write_csv: 12 significant digits by default (8 for summary tables), floats inside
+    mixed columns too; integers, text and empty cells as they were; values read back within rounding."""
+    from chairqm import fileio
+    assert fileio.CSV_SIGNIFICANT_DIGITS == 12 and fileio.SUMMARY_SIGNIFICANT_DIGITS == 8   # README says so
+    df = pd.DataFrame({"g_hartree": [-21.98820864879390, -300.123456789012345],
+                       "mixed": [1.728021915821402, None], "n": [3, 4], "text": ["s1=axial", ""]})
+    fileio.write_csv(tmp_path / "a.csv", df)
+    lines = (tmp_path / "a.csv").read_text().splitlines()
+    assert lines[1] == "-21.9882086488,1.72802191582,3,s1=axial"
+    assert lines[2] == "-300.123456789,,4,"
+    back = pd.read_csv(tmp_path / "a.csv")
+    assert back["g_hartree"].tolist() == pytest.approx(df["g_hartree"].tolist(), abs=1e-9)
+    fileio.write_csv(tmp_path / "s.csv", df, significant_digits=fileio.SUMMARY_SIGNIFICANT_DIGITS)
+    assert (tmp_path / "s.csv").read_text().splitlines()[1] == "-21.988209,1.7280219,3,s1=axial"

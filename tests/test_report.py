@@ -594,7 +594,7 @@ def test_unrefined_page_has_no_refinement_columns(page):
 
 
 def test_refined_settings_table_lists_the_settings_the_single_points_used(refined_page):
-    run = refined_page[refined_page.index('id="run"'):]
+    run = refined_page[refined_page.index('id="settings"'):]
     run = run[:run.index("</section>")]
     row = next(r for r in _table_rows(run) if r and r[0] == "refine")
     assert "functional=PBE0" in row[1] and "basis=def2-TZVP" in row[1] and "window_kcal=2.5" in row[1]
@@ -666,3 +666,19 @@ def test_a_temperature_without_calibration_says_why(run_folder):
     text = build_report(run_folder, dict(copy.deepcopy(RUN_INFO), calibration_temperature_k=298.15))
     assert "none at 350 K; the calibration was fitted at 298.15 K and is applied only there" in text
     assert "none at 298.15 K" not in text
+
+
+def test_page_answers_first_and_keeps_settings_for_the_end(page):
+    """Issue 18: the verdicts (overview table) come first, settings/versions/provenance last."""
+    _, text, _ = page
+    body = text[text.index("<body"):]
+    overview, run, settings = (body.index(f'id="{s}"') for s in ("overview", "run", "settings"))
+    assert overview < run < settings
+    articles = [m.start() for m in re.finditer(r"<article", body)]
+    assert articles and max(articles) < settings                   # every molecule before the settings
+    for heading in ("<h3>Settings</h3>", "<h3>Versions and provenance</h3>"):
+        assert body.index(heading) > settings
+    # the overview row of the calibrated molecule shows its calibrated value with the interval
+    ov = body[overview:body.index("</section>", overview)]
+    assert "calibrated / kcal mol⁻¹ (95 % interval)" in ov
+    assert "1.70 (1.35 to 2.05)" in ov

@@ -134,9 +134,17 @@ def _rc():
             "axes.spines.top": False, "axes.spines.right": False, "axes.edgecolor": "#55585f"}
 
 
-def energy_levels_svg(conformers: list[dict], families: list[dict], temperature, salt: str) -> str | None:
-    """Energy-level diagram: one column per family (ranked), a short level per counted conformer at its
-    relative G (kcal/mol) at `temperature`, the family free energy as a dashed level; coloured by ring form."""
+#: Families up to which the energy-level diagram stands in columns; with more it lies on its side, one
+#: row per family with its label written horizontally, and grows in height with the family count.
+LEVEL_COLUMNS_MAX = 6
+
+
+def energy_levels_figure(conformers: list[dict], families: list[dict], temperature):
+    """The energy-level diagram as a matplotlib Figure (None without counted conformers): one column per
+    family (ranked), a short level per counted conformer at its relative G (kcal/mol) at `temperature`,
+    the family free energy as a dashed level; coloured by ring form. With more than LEVEL_COLUMNS_MAX
+    families the diagram is drawn on its side (one labelled row per family, G along x), so that no label
+    overlaps another however many families a molecule has."""
     import matplotlib
     from matplotlib.figure import Figure
 
@@ -151,30 +159,59 @@ def energy_levels_svg(conformers: list[dict], families: list[dict], temperature,
         groups.setdefault((c.get("ring_form", ""), c.get("orientation", "")), []).append(num(c["g_rel_kcal"]))
     keys = sorted(groups, key=lambda k: (fam_g.get(k) if fam_g.get(k) is not None else min(groups[k]),
                                          min(groups[k]), k))
-    width = min(9.0, max(3.6, 0.75 * len(keys) + 1.6))
+    sideways = len(keys) > LEVEL_COLUMNS_MAX
     with matplotlib.rc_context(_rc()):
-        fig = Figure(figsize=(width, 2.9))
+        if sideways:
+            fig = Figure(figsize=(6.8, 0.9 + 0.27 * len(keys)))
+        else:
+            fig = Figure(figsize=(min(9.0, max(3.6, 0.95 * len(keys) + 1.6)), 2.9))
         ax = fig.add_subplot(1, 1, 1)
         for x, k in enumerate(keys):
             colour = RING_FORM_COLOURS.get(k[0], RING_FORM_COLOURS["other"])
             levels = sorted(groups[k])
-            for g in levels:
-                ax.plot([x - 0.28, x + 0.28], [g, g], color=colour, lw=1.8, solid_capstyle="butt")
             fg = fam_g.get(k)
-            if fg is not None:
-                ax.plot([x - 0.38, x + 0.38], [fg, fg], color=colour, lw=0.9, ls=(0, (2, 1.5)))
-            ax.text(x, max(levels), f" {len(levels)}", ha="center", va="bottom", fontsize=6.5, color="#55585f")
-        ax.set_xticks(range(len(keys)))
-        ax.set_xticklabels([k[0] + "\n" + orientation_short(k[1]).replace(", ", "\n") for k in keys],
-                           fontsize=6.5 if len(keys) > 6 else 7.5)
-        ax.set_xlim(-0.6, len(keys) - 0.4)
-        ax.set_ylabel("relative G / kcal mol$^{-1}$")
+            if sideways:
+                for g in levels:
+                    ax.plot([g, g], [x - 0.32, x + 0.32], color=colour, lw=1.6, solid_capstyle="butt")
+                if fg is not None:
+                    ax.plot([fg, fg], [x - 0.42, x + 0.42], color=colour, lw=0.9, ls=(0, (2, 1.5)))
+                ax.text(max(levels), x, f"  {len(levels)}", ha="left", va="center", fontsize=6.5, color="#55585f")
+            else:
+                for g in levels:
+                    ax.plot([x - 0.28, x + 0.28], [g, g], color=colour, lw=1.8, solid_capstyle="butt")
+                if fg is not None:
+                    ax.plot([x - 0.38, x + 0.38], [fg, fg], color=colour, lw=0.9, ls=(0, (2, 1.5)))
+                ax.text(x, max(levels), f" {len(levels)}", ha="center", va="bottom", fontsize=6.5, color="#55585f")
+        if sideways:
+            ax.set_yticks(range(len(keys)))
+            ax.set_yticklabels([f"{k[0]}  {orientation_short(k[1])}" for k in keys], fontsize=7)
+            ax.set_ylim(len(keys) - 0.4, -0.6)            # the lowest family on top
+            ax.set_xlabel("relative G / kcal mol$^{-1}$ (number of conformers at the right of each row)")
+            lo, hi = ax.get_xlim()
+            ax.set_xlim(min(lo, -0.3), hi + 0.08 * (hi - lo + 1.0))
+            ax.grid(axis="x", color="#e3e1dc", lw=0.6)
+        else:
+            ax.set_xticks(range(len(keys)))
+            ax.set_xticklabels([k[0] + "\n" + orientation_short(k[1]).replace(", ", "\n") for k in keys],
+                               fontsize=6.5 if len(keys) > 4 else 7.5)
+            ax.set_xlim(-0.6, len(keys) - 0.4)
+            ax.set_ylabel("relative G / kcal mol$^{-1}$")
+            lo, hi = ax.get_ylim()
+            ax.set_ylim(min(lo, -0.3), hi + 0.08 * (hi - lo + 1.0))
+            ax.grid(axis="y", color="#e3e1dc", lw=0.6)
         ax.set_title(f"conformers at {fmt_t(temperature)}", loc="left")
-        lo, hi = ax.get_ylim()
-        ax.set_ylim(min(lo, -0.3), hi + 0.08 * (hi - lo + 1.0))
-        ax.grid(axis="y", color="#e3e1dc", lw=0.6)
         ax.set_axisbelow(True)
         fig.tight_layout(pad=0.4)
+        return fig
+
+
+def energy_levels_svg(conformers: list[dict], families: list[dict], temperature, salt: str) -> str | None:
+    """The energy-level diagram (energy_levels_figure) as inline SVG text, or None."""
+    import matplotlib
+    fig = energy_levels_figure(conformers, families, temperature)
+    if fig is None:
+        return None
+    with matplotlib.rc_context(_rc()):
         return _figure_svg(fig, salt)
 
 

@@ -136,7 +136,7 @@ def run(cfg, plan, name=None, threads=1):
     note = calibrate_rows(rows, settings)
     summary = tables.frame(rows, tables.summary(settings))
     summary["flag"] = summary["flag"].map(lambda v: "true" if bool(v) else "false")
-    fileio.write_csv("summary.csv", summary)
+    fileio.write_csv("summary.csv", summary, significant_digits=fileio.SUMMARY_SIGNIFICANT_DIGITS)
     prov = provenance(cfg, plan, note)
     from .. import calibration as cq_cal
     cal = cq_cal.load_matching(settings)
