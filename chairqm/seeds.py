@@ -75,7 +75,7 @@ CHAIR_Q = 0.55          # Å, template amplitude of the chairs (MMFF94 cyclohexa
 TWIST_Q = 0.72          # Å, template amplitude of the twist-boats (MMFF94 cyclohexane twist-boat: 0.717 Å)
 RING_TORSION_TOL = 10.0     # deg, flat-bottom half-width of the ring-torsion restraints
 RING_TORSION_K = 1.0e3      # force constant of those restraints (RDKit units, kcal/mol per rad^2)
-MAX_OTHER_RING_SETS = 8     # combinations of the other rings' chairs seeded per ring form (2^3: three rings)
+MAX_OTHER_RING_SETS = 16    # combinations of the other rings' states seeded per ring form (4^2: two rings)
 SKELETON_TOL = 0.02         # Å, max deviation for two skeletons to be symmetry-equivalent
 # numpy's results can differ in the last bits between processes (memory alignment picks different SIMD
 # paths); coordinates are rounded at each hand-over so that the same input gives the same bytes.
@@ -295,7 +295,12 @@ def _forcefield(ctx, conf_id, targets=None):
         return None
     if targets is not None:
         pairs = [(ctx.ring, targets)] if isinstance(targets, np.ndarray) else targets
-        for r, torsions in pairs:
+        for item in pairs:
+            if item[0] == "torsion":                 # ("torsion", (i, j, k, l), low, high) in degrees
+                _, (i, j, k, l), lo, hi = item
+                add(i, j, k, l, False, float(lo), float(hi), RING_TORSION_K)
+                continue
+            r, torsions = item
             for j in range(6):
                 t = float(torsions[j])
                 add(r[j], r[(j + 1) % 6], r[(j + 2) % 6], r[(j + 3) % 6], False,
@@ -382,20 +387,32 @@ def _frame(ctx, X, ring_xyz):
 
 
 def _other_ring_chairs(ctx) -> list:
-    """One restraint set per combination of the other rings' two chairs (at most MAX_OTHER_RING_SETS):
-    [(ring atoms, six target torsions), ...]; [[]] when the molecule has no other ring. A ring inside a
-    substituent is thereby sampled in both chairs (its link to the analysed ring equatorial in one, axial
-    in the other) instead of keeping whatever form the embedding gave it."""
+    """One restraint set per combination of the other rings' states (at most MAX_OTHER_RING_SETS): each
+    ring in both chairs, and in each chair its link to the analysed ring equatorial and axial (a ring N
+    inverts, so the chair alone does not decide where the link sits). [[]] when there is no other ring.
+    A ring inside a substituent is thereby sampled in its chairs instead of keeping whatever form the
+    embedding gave it. Restraints: the six ring torsions (as for the analysed ring) and the torsion
+    X–A–B–C of the link X–A (A in the ring, B, C its ring neighbours): in a chair with ring torsion
+    F–A–B–C = τ, the equatorial link is anti to C (≈ sign(τ)·175°) and the axial one gauche (≈ −sign(τ)·65°),
+    ideal tetrahedral geometry."""
     per_ring = []
     for o in ctx.others:
-        r = [int(a) for a in o["atoms"]]
-        lengths = [_bond_length(ctx.mol, r[k], r[(k + 1) % 6]) for k in range(6)]
-        chairs = [t for t in TEMPLATES if t.form == "chair"]
-        per_ring.append([(r, np.round(ringgeo.ring_torsions(ringgeo.ring_from_pucker(t.q, t.theta, t.phi, lengths)), 4))
-                         for t in chairs])
+        r0 = [int(a) for a in o["atoms"]]
+        k = r0.index(int(o["link_atom"]))
+        r = r0[k:] + r0[:k]                          # the link atom first: torsion 5 is F-A-B-C
+        lengths = [_bond_length(ctx.mol, r[i], r[(i + 1) % 6]) for i in range(6)]
+        states = []
+        for t in (t for t in TEMPLATES if t.form == "chair"):
+            tors = np.round(ringgeo.ring_torsions(ringgeo.ring_from_pucker(t.q, t.theta, t.phi, lengths)), 4)
+            sign = 1.0 if tors[5] > 0 else -1.0
+            link = (int(o["link_to"]), r[0], r[1], r[2])
+            eq = ("torsion", link, *sorted((sign * 160.0, sign * 180.0)))
+            ax = ("torsion", link, -sign * 65.0 - 15.0, -sign * 65.0 + 15.0)
+            states += [[(r, tors), eq], [(r, tors), ax]]
+        per_ring.append(states)
     if not per_ring:
         return [[]]
-    return [list(c) for c in itertools.product(*per_ring)][:MAX_OTHER_RING_SETS]
+    return [[x for part in c for x in part] for c in itertools.product(*per_ring)][:MAX_OTHER_RING_SETS]
 
 
 # ---- the public entry points ------------------------------------------------------------------------
