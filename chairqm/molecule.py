@@ -427,10 +427,15 @@ def _system_kind(mol, ring) -> str:
 
 
 def _other_rings(mol, ring, rings) -> list[dict]:
-    """The analysable six-membered rings other than the analysed one, each with the bond that leads from
-    it towards the analysed ring (shortest path through the molecular graph)."""
+    """The analysable six-membered rings other than the analysed one, then the saturated four-membered
+    rings (cyclobutyl, oxetanyl, azetidinyl), each with the bond that leads from it towards the analysed
+    ring (shortest path through the molecular graph)."""
     out = []
-    for r in rings:
+    small = sorted(_order_ring(mol, list(r)) for r in mol.GetRingInfo().AtomRings()
+                   if len(r) == 4 and not any(mol.GetAtomWithIdx(i).GetIsAromatic() for i in r)
+                   and all(mol.GetBondBetweenAtoms(r[k], r[(k + 1) % 4]).GetBondType() == Chem.BondType.SINGLE
+                           for k in range(4)))
+    for r in list(rings) + small:
         if r == ring or set(r) & set(ring):
             continue
         best = None

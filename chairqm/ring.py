@@ -318,9 +318,34 @@ def other_ring_states(positions, other_rings) -> str:
     x = np.asarray(positions, dtype=float)
     parts = []
     for o in other_rings:
+        if len(o["atoms"]) == 4:
+            parts.append(f"{o['label']}={four_ring_state(x, o['atoms'], o['link_atom'], o['link_to'])}")
+            continue
         form = classify(cremer_pople(x[list(o["atoms"])]))
         parts.append(f"{o['label']}={form}:{orientation(x, list(o['atoms']), o['link_atom'], o['link_to'], form)}")
     return ";".join(parts)
+
+
+#: |ring torsion| (deg) below which a four-membered ring counts as planar. Puckered cyclobutane has ring
+#: torsions near 20-27 deg (gas-phase electron diffraction, from memory); oxetane is nearly planar.
+FOUR_RING_PLANAR_DEG = 8.0
+
+
+def four_ring_state(positions, atoms, link_atom: int, link_to: int) -> str:
+    """'puckered:pseudo-equatorial' (or pseudo-axial; 'planar:isoclinal') of a four-membered ring given in
+    ring order: puckered when its first ring torsion exceeds FOUR_RING_PLANAR_DEG; the link bond is
+    pseudo-axial when it makes less than 45 deg with the normal of the ring's least-squares plane, and
+    pseudo-equatorial otherwise (the two exocyclic positions of a puckered ring differ in just that)."""
+    x = np.asarray(positions, dtype=float)
+    r = x[list(atoms)]
+    tau = dihedral(r[0], r[1], r[2], r[3])
+    if abs(tau) < FOUR_RING_PLANAR_DEG:
+        return "planar:isoclinal"
+    c = r - r.mean(axis=0)
+    normal = np.linalg.svd(c)[2][-1]
+    bond = x[link_to] - x[link_atom]
+    cos = abs(float(bond @ normal)) / float(np.linalg.norm(bond))
+    return "puckered:" + ("pseudo-axial" if cos > math.cos(math.radians(45.0)) else "pseudo-equatorial")
 
 
 def ring_torsions(coords) -> np.ndarray:

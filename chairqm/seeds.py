@@ -75,6 +75,7 @@ CHAIR_Q = 0.55          # Å, template amplitude of the chairs (MMFF94 cyclohexa
 TWIST_Q = 0.72          # Å, template amplitude of the twist-boats (MMFF94 cyclohexane twist-boat: 0.717 Å)
 RING_TORSION_TOL = 10.0     # deg, flat-bottom half-width of the ring-torsion restraints
 RING_TORSION_K = 1.0e3      # force constant of those restraints (RDKit units, kcal/mol per rad^2)
+FOUR_RING_TORSION = 20.0    # deg, puckered cyclobutane's ring torsion magnitude (20-27 deg, from memory)
 MAX_OTHER_RING_SETS = 16    # combinations of the other rings' states seeded per ring form (4^2: two rings)
 SKELETON_TOL = 0.02         # Å, max deviation for two skeletons to be symmetry-equivalent
 # numpy's results can differ in the last bits between processes (memory alignment picks different SIMD
@@ -301,9 +302,10 @@ def _forcefield(ctx, conf_id, targets=None):
                 add(i, j, k, l, False, float(lo), float(hi), RING_TORSION_K)
                 continue
             r, torsions = item
-            for j in range(6):
+            n = len(r)
+            for j in range(n):
                 t = float(torsions[j])
-                add(r[j], r[(j + 1) % 6], r[(j + 2) % 6], r[(j + 3) % 6], False,
+                add(r[j], r[(j + 1) % n], r[(j + 2) % n], r[(j + 3) % n], False,
                     t - RING_TORSION_TOL, t + RING_TORSION_TOL, RING_TORSION_K)
     ff.Initialize()
     return ff
@@ -398,6 +400,12 @@ def _other_ring_chairs(ctx) -> list:
     per_ring = []
     for o in ctx.others:
         r0 = [int(a) for a in o["atoms"]]
+        if len(r0) == 4:
+            # a four-membered ring: its two puckers (ring torsions +τ, −τ, +τ, −τ and the reverse), which put
+            # the link pseudo-equatorial in one and pseudo-axial in the other
+            per_ring.append([[(r0, np.array([sg * FOUR_RING_TORSION * (-1) ** j for j in range(4)]))]
+                             for sg in (1.0, -1.0)])
+            continue
         k = r0.index(int(o["link_atom"]))
         r = r0[k:] + r0[:k]                          # the link atom first: torsion 5 is F-A-B-C
         lengths = [_bond_length(ctx.mol, r[i], r[(i + 1) % 6]) for i in range(6)]

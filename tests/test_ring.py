@@ -254,3 +254,22 @@ def test_measure_orders_substituents_numerically():
     if out["ring_form"] == "chair":
         a, b = (kv.split("=")[1] for kv in out["orientation"].split(";")[:2])
         assert {a, b} == {"axial", "equatorial"}
+
+
+def test_four_membered_ring_pucker_and_link_position():
+    """Cyclobutane is puckered (ring torsions about 20-27 deg by gas-phase electron diffraction, from
+    memory; MMFF94 reproduces the pucker), so a substituent on it is pseudo-axial or pseudo-equatorial; a
+    planar square ring has neither."""
+    import numpy as np
+    from rdkit import Chem
+    from rdkit.Chem import AllChem
+
+    from chairqm.ring import four_ring_state
+    mol = Chem.AddHs(Chem.MolFromSmiles("CC1CCC1"))
+    AllChem.EmbedMolecule(mol, randomSeed=7)
+    AllChem.MMFFOptimizeMolecule(mol)
+    x = mol.GetConformer().GetPositions()
+    state = four_ring_state(x, [1, 2, 3, 4], 1, 0)
+    assert state in ("puckered:pseudo-equatorial", "puckered:pseudo-axial")
+    square = np.array([[0, 0, 0], [1.55, 0, 0], [1.55, 1.55, 0], [0, 1.55, 0], [-0.9, -0.9, 0.0]], dtype=float)
+    assert four_ring_state(square, [0, 1, 2, 3], 0, 4) == "planar:isoclinal"

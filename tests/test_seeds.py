@@ -438,3 +438,11 @@ def test_ring_ketone_and_rings_in_groups_are_seeded():
     p = perceive({"name": "b", "smiles": "C1CCC(CC1)C1CCCCC1"})[0]
     found = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
     assert {s.other_rings for s in found if s.status == "ok"} == {"r2=chair:axial", "r2=chair:equatorial"}
+
+
+def test_a_four_membered_ring_in_a_group_is_seeded_in_both_puckers():
+    from chairqm.molecule import perceive
+    p = perceive({"name": "cb", "smiles": "C1CCC(CC1)C1CCC1"})[0]
+    found = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
+    assert {s.other_rings for s in found if s.status == "ok"} == {"r2=puckered:pseudo-axial",
+                                                                  "r2=puckered:pseudo-equatorial"}
