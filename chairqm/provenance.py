@@ -82,11 +82,12 @@ def _thermo_record_settings(block):
 
 def _optimize_record_settings(block):
     """The optimisation settings with 'auto' replaced by the optimiser it stands for, so a record made
-    under an earlier default is not reused when the default changes."""
+    under an earlier default is not reused when the default changes; without the molecule's gradient
+    budget, which decides which seeds are optimised, not what one optimisation gives."""
     if block is None:
         return None
     from .optimize import _canonical_optimizer
-    b = dict(block)
+    b = {k: v for k, v in dict(block).items() if k != "max_gradient_calls"}
     if "optimizer" in b:
         b["optimizer"] = _canonical_optimizer(b["optimizer"])
     return b

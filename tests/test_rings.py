@@ -86,3 +86,19 @@ def test_2_chlorocyclohexanone_chlorine_axial_in_the_gas_phase(run):
     textbook example of the C=O/C–Cl dipole opposing the equatorial preference)."""
     _, s = run
     assert _a(s, "cl-cyclohexanone") < 0        # A = G(axial) − G(equatorial): negative = axial preferred
+
+
+@pytest.mark.slow
+def test_a_spent_gradient_budget_is_reported_never_silent(tmp_path):
+    cfg = tmp_path / "budget.yaml"
+    cfg.write_text(yaml.safe_dump({"molecules": [{"name": "mch", "smiles": "CC1CCCCC1"}],
+                                   "settings": {"seeds": {"twist_boats": False},
+                                                "optimize": {"max_gradient_calls": 1}}}))
+    out = tmp_path / "out"
+    subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "1"],
+                   capture_output=True, text=True, timeout=900)
+    minima = pd.read_csv(out / "mch" / "minima.csv", keep_default_na=False)
+    assert "not-optimised" in set(minima["status"])
+    assert any("gradient budget" in r for r in minima["reason"])
+    row = pd.read_csv(out / "summary.csv", keep_default_na=False).iloc[0]
+    assert str(row["flag"]).lower() == "true" and "gradient budget" in row["flag_reason"]

@@ -260,3 +260,17 @@ def test_the_first_failure_stays_the_recorded_cause(tmp_path, monkeypatch):
     runner.record_failure("thermo", "m", settings, "empty input")
     assert runner.failure("m") == {"stage": "seeds", "reason": "embedding broke"}
     assert (tmp_path / "m" / "thermo.csv").is_file()            # the later stage's outputs are still written
+
+
+def _square(x):
+    return x * x
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+def test_budgeted_map_starts_nothing_once_the_budget_is_spent(threads):
+    out = records.budgeted_map(_square, [3, 3, 3, 3, 3, 3], threads, budget=10, cost=lambda r: r)
+    done = [r for r in out if r is not None]
+    assert done and all(r == 9 for r in done)
+    assert sum(done) >= 10 and len(done) <= 2 + threads     # stopped soon after the total passed 10
+    assert out[-1] is None                                  # 6 × 9 = 54 > 10: the last one never ran
+    assert records.budgeted_map(_square, [1, 2], threads, budget=0, cost=lambda r: r) == [1, 4]

@@ -224,6 +224,15 @@ def run(cfg, plan, name, threads=1):
                 key = cq_ens.family_key(r.ring_form, r.orientation)
                 out["curve"]["families"].setdefault(key, [0.0] * len(CURVE_T))
                 out["curve"]["families"][key][CURVE_T.index(t)] = float(r.population)
+    minima = fileio.read_json(folder / "minima.json")
+    skipped = minima.get("not_optimised") or []
+    if skipped and out["status"] == "ok":
+        why = (f"{len(skipped)} seed(s) were not optimised because the gradient budget of "
+               f"{minima.get('gradient_budget')} calls was spent (settings.optimize.max_gradient_calls): the "
+               "ensemble may miss conformers")
+        for row in out["temperatures"]:
+            row["flag"] = True
+            row["flag_reason"] = "; ".join(x for x in (row["flag_reason"], why) if x)
     fam_cols = tables.families(settings)
     fams = pd.concat(fam_frames, ignore_index=True) if fam_frames else tables.frame([], fam_cols)
     fileio.write_csv(folder / "families.csv", fams.reindex(columns=fam_cols))

@@ -12,7 +12,8 @@ from pathlib import Path
 from .. import fileio
 from . import tables
 from .faults import fault, failing_calculator, stretch_a_bond
-from .records import CalcFactory, engine_settings, load_molecule, pool_map, read_xyz, record_key, reusable, write_xyz
+from .records import (CalcFactory, budgeted_map, engine_settings, load_molecule, read_xyz, record_key, reusable,
+                      write_xyz)
 
 
 def _optimise_one(job):
@@ -73,7 +74,15 @@ def run(cfg, plan, name, threads=1):
             recs[seed] = old                # finished earlier with the same input and settings (a failed
             continue                        # record is retried)
         jobs.append((name, seed, key, es, opt, str(xyz_in), str(work / f"{seed}.xyz"), str(out_json)))
-    for rec in pool_map(_optimise_one, jobs, threads):
+    budget = int(opt.get("max_gradient_calls") or 0)
+    spent = sum(int(r.get("gradient_calls") or 0) for r in recs.values())
+    results = budgeted_map(_optimise_one, jobs, threads, budget, lambda r: int(r["gradient_calls"]), spent)
+    for job, rec in zip(jobs, results):
+        if rec is None:                     # the molecule's gradient budget was spent before this seed
+            rec = {"seed": job[1], "status": "not-optimised", "energy_hartree": None, "gradient_calls": 0,
+                   "steps": 0, "fmax_final": None, "engine_seconds": 0.0, "measured": None,
+                   "reason": (f"not optimised: the molecule's gradient budget of {budget} calls was spent "
+                              "(settings.optimize.max_gradient_calls; 0 lifts it)")}
         recs[rec["seed"]] = rec
     good = [s for s in kept["seed"] if recs[s]["status"] == "ok"]
     geoms = {s: read_xyz(work / f"{s}.xyz") for s in good}
@@ -122,7 +131,8 @@ def run(cfg, plan, name, threads=1):
         "molecule": name, "engine": es, "optimize": opt, "conformers": conformers,
         "engine_seconds": float(sum(recs[s]["engine_seconds"] for s in kept["seed"])),
         "gradient_calls": int(sum(recs[s]["gradient_calls"] for s in kept["seed"])),
-        "chairqm_version": __version__})
+        "chairqm_version": __version__, "gradient_budget": budget,
+        "not_optimised": [s for s in kept["seed"] if recs[s]["status"] == "not-optimised"]})
     fileio.write_csv(folder / "minima.csv", tables.frame(rows, tables.minima(settings)))
 
 

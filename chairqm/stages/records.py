@@ -85,6 +85,39 @@ def pool_map(fn, items, threads):
         return list(ex.map(fn, items))
 
 
+def budgeted_map(fn, items, threads, budget, cost, spent=0):
+    """Like :func:`pool_map` while the running total of cost(result) (plus `spent`) stays below `budget`
+    (0 or None: no limit): no item is started once the budget is spent. Returns results in input order,
+    None for the items never started. Which items run when the budget is hit can depend on `threads`."""
+    items = list(items)
+    if not budget:
+        return pool_map(fn, items, threads)
+    out = [None] * len(items)
+    if threads <= 1 or len(items) <= 1:
+        for i, x in enumerate(items):
+            if spent >= budget:
+                break
+            out[i] = fn(x)
+            spent += cost(out[i])
+        return out
+    import multiprocessing as mp
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+    with ProcessPoolExecutor(max_workers=min(threads, len(items)), mp_context=mp.get_context("spawn")) as ex:
+        nxt, running = 0, {}
+        while nxt < len(items) or running:
+            while nxt < len(items) and len(running) < threads and spent < budget:
+                running[ex.submit(fn, items[nxt])] = nxt
+                nxt += 1
+            if not running:
+                break
+            done, _ = wait(running, return_when=FIRST_COMPLETED)
+            for f in done:
+                i = running.pop(f)
+                out[i] = f.result()
+                spent += cost(out[i])
+    return out
+
+
 def read_xyz(path):
     from ase.io import read
     return read(str(path), format="extxyz")

@@ -5,6 +5,7 @@
 rule ensemble:
     input:
         "{mol}/molecule.json",
+        "{mol}/minima.json",
         "{mol}/thermo.json",
         "{mol}/thermo",
         reference_ensembles,
