@@ -251,12 +251,14 @@ class CheckResult:
 
     @property
     def table(self) -> str:
+        from . import relstereo
         rows = [("molecule", "ring atoms", "substituents", "stereo")]
         for m in self.plan.molecules:
             ring = "-".join(f"{e}{i}" for e, i in zip(m.ring_elements, m.ring))
             subs = ", ".join(f"{s.id}@{s.ring_atom} {s.fragment}" for s in m.substituents) or "none"
             name = m.name + (" (reference)" if m.reference else "")
-            rows.append((name, ring, subs, m.stereo))
+            rel = relstereo.words(m.mol, m.ring, m.substituents) if m.stereo not in ("", "none") else ""
+            rows.append((name, ring, subs, f"{rel} ({m.stereo})" if rel else m.stereo))
         return format_rows(rows)
 
     @property

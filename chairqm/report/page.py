@@ -216,6 +216,11 @@ def _finalize(value):
     return Markup(html.escape(str(value), quote=True))
 
 
+def _relative_stereo(record: dict) -> str:
+    from .. import relstereo
+    return relstereo.words_from_record(record)
+
+
 def environment() -> jinja2.Environment:
     env = jinja2.Environment(
         loader=jinja2.FileSystemLoader(str(Path(__file__).parent / "templates")),
@@ -229,7 +234,7 @@ def environment() -> jinja2.Environment:
         provenance_pairs=provenance_pairs, refine_view=refine_view, group_fragments=group_fragments,
         seed_failures=seed_failures, has_dft_column=has_dft_column, n_not_counted=n_not_counted,
         additive_terms=additive_terms, refine_rows_by_id=refine_rows_by_id,
-        depiction=depiction, plots=plots)
+        depiction=depiction, plots=plots, relative_stereo=_relative_stereo)
     return env
 
 
