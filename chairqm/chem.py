@@ -12,6 +12,12 @@ import numpy as np
 from rdkit import Chem
 
 
+def covalent_bond_length(mol: Chem.Mol, i: int, j: int) -> float:
+    """Sum of the two atoms' covalent radii (RDKit's periodic table), Å: a start bond length."""
+    pt = Chem.GetPeriodicTable()
+    return pt.GetRcovalent(mol.GetAtomWithIdx(i).GetAtomicNum()) + pt.GetRcovalent(mol.GetAtomWithIdx(j).GetAtomicNum())
+
+
 # ------------------------------------------------------------------------------------ RDKit conformers
 def set_positions(mol: Chem.Mol, positions) -> int:
     """Replace every conformer of `mol` (in place) by one 3D conformer at `positions` (N × 3, Å);

@@ -44,7 +44,7 @@ from rdkit import Chem, RDLogger
 from rdkit.Chem import AllChem
 from rdkit.Geometry import Point3D
 
-from . import chem, rotamers, symmetry
+from . import chem, other_rings, rotamers, symmetry
 from . import ring as ringgeo
 from .errors import ChairqmError
 from .molecule import is_trigonal_exocyclic
@@ -75,7 +75,6 @@ CHAIR_Q = 0.55          # Å, template amplitude of the chairs (MMFF94 cyclohexa
 TWIST_Q = 0.72          # Å, template amplitude of the twist-boats (MMFF94 cyclohexane twist-boat: 0.717 Å)
 RING_TORSION_TOL = 10.0     # deg, flat-bottom half-width of the ring-torsion restraints
 RING_TORSION_K = 1.0e3      # force constant of those restraints (RDKit units, kcal/mol per rad^2)
-FOUR_RING_TORSION = 20.0    # deg, puckered cyclobutane's ring torsion magnitude (20-27 deg, from memory)
 MAX_OTHER_RING_SETS = 16    # combinations of the other rings' states seeded per ring form (4^2: two rings)
 SKELETON_TOL = 0.02         # Å, max deviation for two skeletons to be symmetry-equivalent
 # numpy's results can differ in the last bits between processes (memory alignment picks different SIMD
@@ -147,8 +146,7 @@ def check_settings(settings: dict | None) -> dict:
 
 # ---- small geometry helpers -------------------------------------------------------------------------
 def _bond_length(mol, i, j) -> float:
-    pt = Chem.GetPeriodicTable()
-    return pt.GetRcovalent(mol.GetAtomWithIdx(i).GetAtomicNum()) + pt.GetRcovalent(mol.GetAtomWithIdx(j).GetAtomicNum())
+    return chem.covalent_bond_length(mol, i, j)
 
 
 # ---- the molecule-level context --------------------------------------------------------------------
@@ -389,38 +387,9 @@ def _frame(ctx, X, ring_xyz):
 
 
 def _other_ring_chairs(ctx) -> list:
-    """One restraint set per combination of the other rings' states (at most MAX_OTHER_RING_SETS): each
-    ring in both chairs, and in each chair its link to the analysed ring equatorial and axial (a ring N
-    inverts, so the chair alone does not decide where the link sits). [[]] when there is no other ring.
-    A ring inside a substituent is thereby sampled in its chairs instead of keeping whatever form the
-    embedding gave it. Restraints: the six ring torsions (as for the analysed ring) and the torsion
-    X–A–B–C of the link X–A (A in the ring, B, C its ring neighbours): in a chair with ring torsion
-    F–A–B–C = τ, the equatorial link is anti to C (≈ sign(τ)·175°) and the axial one gauche (≈ −sign(τ)·65°),
-    ideal tetrahedral geometry."""
-    per_ring = []
-    for o in ctx.others:
-        r0 = [int(a) for a in o["atoms"]]
-        if len(r0) == 4:
-            # a four-membered ring: its two puckers (ring torsions +τ, −τ, +τ, −τ and the reverse), which put
-            # the link pseudo-equatorial in one and pseudo-axial in the other
-            per_ring.append([[(r0, np.array([sg * FOUR_RING_TORSION * (-1) ** j for j in range(4)]))]
-                             for sg in (1.0, -1.0)])
-            continue
-        k = r0.index(int(o["link_atom"]))
-        r = r0[k:] + r0[:k]                          # the link atom first: torsion 5 is F-A-B-C
-        lengths = [_bond_length(ctx.mol, r[i], r[(i + 1) % 6]) for i in range(6)]
-        states = []
-        for t in (t for t in TEMPLATES if t.form == "chair"):
-            tors = np.round(ringgeo.ring_torsions(ringgeo.ring_from_pucker(t.q, t.theta, t.phi, lengths)), 4)
-            sign = 1.0 if tors[5] > 0 else -1.0
-            link = (int(o["link_to"]), r[0], r[1], r[2])
-            eq = ("torsion", link, *sorted((sign * 160.0, sign * 180.0)))
-            ax = ("torsion", link, -sign * 65.0 - 15.0, -sign * 65.0 + 15.0)
-            states += [[(r, tors), eq], [(r, tors), ax]]
-        per_ring.append(states)
-    if not per_ring:
-        return [[]]
-    return [[x for part in c for x in part] for c in itertools.product(*per_ring)][:MAX_OTHER_RING_SETS]
+    """One restraint set per combination of the other rings' states (chairqm.other_rings)."""
+    chairs = [(t.q, t.theta, t.phi) for t in TEMPLATES if t.form == "chair"]
+    return other_rings.restraint_sets(ctx.mol, ctx.others, chairs, MAX_OTHER_RING_SETS)
 
 
 # ---- the public entry points ------------------------------------------------------------------------
