@@ -102,3 +102,19 @@ def test_a_spent_gradient_budget_is_reported_never_silent(tmp_path):
     assert any("gradient budget" in r for r in minima["reason"])
     row = pd.read_csv(out / "summary.csv", keep_default_na=False).iloc[0]
     assert str(row["flag"]).lower() == "true" and "gradient budget" in row["flag_reason"]
+
+
+@pytest.mark.slow
+def test_chairs_that_are_one_conformer_by_symmetry_have_gap_zero(tmp_path):
+    """cis-1,4-Dimethylcyclohexane: the ring flip gives the same conformer (its two chairs are
+    indistinguishable, a textbook example, from memory), so the chair gap is exactly 0 and agrees with the
+    additive estimate A(Me) − A(Me) = 0 — not 'the ring-flip partner chair was not found'."""
+    cfg = tmp_path / "sym.yaml"
+    cfg.write_text(yaml.safe_dump({"molecules": [{"name": "cis14", "smiles": "C[C@H]1CC[C@@H](C)CC1"}],
+                                   "settings": {"seeds": {"twist_boats": False}}}))
+    out = tmp_path / "out"
+    subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "2"],
+                   capture_output=True, text=True, timeout=900)
+    row = pd.read_csv(out / "summary.csv", keep_default_na=False).iloc[0]
+    assert row["status"] == "ok" and float(row["chair_dg_kcal"]) == 0.0
+    assert "not found" not in row["flag_reason"] and str(row["flag"]).lower() == "false"

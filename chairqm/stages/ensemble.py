@@ -91,6 +91,45 @@ def apply_refinement(folder: Path, confs) -> bool:
     return True
 
 
+def symmetric_partner(folder: Path, partner_orientation) -> str:
+    """The conformer a seed of the ring-flip partner chair was merged into as a symmetry-equivalent (a seed
+    merged before optimisation in seeds.csv, a duplicate or mirror image in minima.csv, or one merged after
+    the frequency check in thermo.json); '' if none.
+    Only the orientations of the chair's listed substituents are compared."""
+    import re
+
+    import pandas as pd
+
+    from .. import ensemble as cq_ens
+    want = cq_ens.parse_orientation(partner_orientation)
+    if not want:
+        return ""
+
+    def matches(orientation) -> bool:
+        got = cq_ens.parse_orientation(orientation)
+        return all(got.get(k) == v for k, v in want.items())
+    rows = []
+    if (folder / "minima.csv").is_file():
+        df = pd.read_csv(folder / "minima.csv", keep_default_na=False)
+        rows += [(r.ring_form, r.orientation, r.reason) for r in df[df["status"] == "duplicate"].itertuples()]
+        conf_of = {r.seed: (r.conformer or r.reason) for r in df.itertuples()}
+        # a partner seed merged before optimisation as symmetry-equivalent of a kept seed
+        if (folder / "seeds.csv").is_file():
+            sd = pd.read_csv(folder / "seeds.csv", keep_default_na=False)
+            for r in sd[sd["status"] == "merged"].itertuples():
+                hit = re.search(r"symmetry-equivalent of (\S+)", str(r.reason))
+                if hit and hit.group(1) in conf_of:
+                    rows.append((r.ring_form, r.orientation, conf_of[hit.group(1)]))
+    final = fileio.read_json(folder / "thermo.json").get("conformers", [])
+    rows += [(c.get("ring_form"), c.get("orientation"), c.get("reason", "")) for c in final
+             if c.get("status") == "duplicate"]
+    for form, orientation, reason in rows:
+        hit = re.search(r"\b(c\d{3,})\b", str(reason))
+        if form == "chair" and matches(orientation) and hit:
+            return hit.group(1)
+    return ""
+
+
 def _qm_a_values(plan, name, temperature):
     out = {}
     for frag, ref in plan.references_for(name).items():
@@ -110,6 +149,17 @@ def _analyse_temperature(p, plan, name, settings, usable_df, t):
     fam = cq_ens.families(usable_df, t)
     ids = cq_ens.chair_ids(p.ring, p.ring_elements, p.substituents)
     summ = cq_ens.chair_summary(fam, ids)
+    if summ.get("chair_dg_kcal") is None and summ.get("preferred_chair") is not None:
+        same_as = symmetric_partner(Path(name), summ["second_chair_orientation"])
+        if same_as:
+            # the ring-flip partner was merged into a conformer of the preferred chair by a symmetry of the
+            # molecule (cis-1,4-di-tert-butylcyclohexane): the two chairs are one conformer, gap 0 exactly
+            notes = [n for n in str(summ.get("note", "")).split("; ") if n and "ring-flip partner chair" not in n]
+            notes.append(f"the ring-flip partner chair is the same conformer by symmetry (merged into {same_as}): "
+                         "the two chairs are degenerate")
+            summ.update(second_chair=summ["preferred_chair"], chair_dg_kcal=0.0, note="; ".join(notes))
+            if len(ids) == 1:
+                summ["a_value_kcal"] = 0.0
     qm = _qm_a_values(plan, name, t)
     own = (len(p.substituents) == 1 and p.ring_elements == ["C"] * 6 and summ.get("a_value_kcal") is not None
            and cq_add.needs_reference(p.substituents))

@@ -5,6 +5,8 @@
 rule ensemble:
     input:
         "{mol}/molecule.json",
+        "{mol}/seeds.csv",
+        "{mol}/minima.csv",
         "{mol}/minima.json",
         "{mol}/thermo.json",
         "{mol}/thermo",
