@@ -27,6 +27,8 @@ Hessians computed, and the gradient calls a fresh run of each variant makes (min
 mode-following re-optimisations of the frequency-checked conformers, read from the per-conformer records),
 and b = RT ln(d_i/d_0) − Δ(G − E)_i of every conformer of the full run (chairqm.frequency_window).
   nice -n 10 python benchmarks/avalue.py --reference configs/reference.yaml --out results/bench/window
+With --from-run RUN (a finished run of the same configuration) both variants rerun only the thermo and
+ensemble stages, through the stage runner, on copies of RUN.
 """
 
 from __future__ import annotations
@@ -151,7 +153,26 @@ def brackets(mol: Path) -> list[dict]:
     return out
 
 
-def compare_reference(config: Path, out: Path, cores: int) -> int:
+def _stages_again(cfg_path: Path, folder: Path, molecules, cores: int) -> int:
+    """Rerun only the thermo and ensemble stages of every molecule in `folder` with this chairqm (the
+    stage runner, no Snakemake): the optimisations stay as they are, Hessian displacements come from the
+    cache. Returns the number of molecules whose stages failed."""
+    import os
+    env = dict(os.environ, CHAIRQM_CONFIG=str(cfg_path.resolve()), OMP_NUM_THREADS="1")
+    bad = 0
+    for m in molecules:
+        for stage in ("thermo", "ensemble"):
+            proc = subprocess.run([sys.executable, "-m", "chairqm.stages", stage, "--molecule", m, "--threads",
+                                   str(cores)], cwd=folder, env=env, capture_output=True, text=True)
+            if proc.returncode or (folder / m / "failed.json").is_file():
+                print(f"# {m} {stage}: failed {proc.stderr[-500:]}", file=sys.stderr)
+                bad += 1
+                break
+    return bad
+
+
+def compare_reference(config: Path, out: Path, cores: int, stages_only: Path | None = None,
+                      rerun: bool = True) -> int:
     import shutil
 
     import pandas as pd
@@ -169,17 +190,28 @@ def compare_reference(config: Path, out: Path, cores: int) -> int:
         path = out / f"{label}.yaml"
         path.write_text(yaml.safe_dump(cfg, sort_keys=False))
         dest = out / label
-        if label == "window" and not dest.exists():
-            shutil.copytree(runs["all"], dest)
         t0 = time.perf_counter()
-        proc = subprocess.run([C.CHAIRQM, "run", str(path), "--out", str(dest), "--cores", str(cores)],
-                              capture_output=True, text=True)
-        print(f"# {label}: exit {proc.returncode}, {time.perf_counter() - t0:.0f} s", file=sys.stderr, flush=True)
+        if not rerun and dest.exists():
+            rc = 0
+        elif stages_only is not None:
+            # an earlier finished run: both variants rerun thermo and ensemble on copies of it
+            if not dest.exists():
+                shutil.copytree(stages_only, dest, symlinks=True)
+            names = [m["name"] for m in cfg["molecules"] if (dest / m["name"] / "minima.json").is_file()]
+            rc = _stages_again(path, dest, names, cores)
+        else:
+            if label == "window" and not dest.exists():
+                shutil.copytree(runs["all"], dest)
+            rc = subprocess.run([C.CHAIRQM, "run", str(path), "--out", str(dest), "--cores", str(cores)],
+                                capture_output=True, text=True).returncode
+        print(f"# {label}: exit {rc}, {time.perf_counter() - t0:.0f} s", file=sys.stderr, flush=True)
         runs[label] = dest
     rows, bs = [], []
-    sa = pd.read_csv(runs["all"] / "summary.csv", keep_default_na=False)
-    sw = pd.read_csv(runs["window"] / "summary.csv", keep_default_na=False)
-    for m in sorted(set(sa.molecule)):
+    def a_values(folder, m):
+        e = json.loads((folder / m / "ensemble.json").read_text())
+        return {r["temperature_k"]: (r.get("a_value_kcal"), r.get("chair_dg_kcal")) for r in e.get("temperatures", [])}
+
+    for m in sorted(x["name"] for x in base["molecules"]):
         ma, mw = runs["all"] / m, runs["window"] / m
         if not (ma / "thermo.json").is_file() or not (mw / "conformers.csv").is_file():
             rows.append({"molecule": m, "status": "missing"})
@@ -195,9 +227,9 @@ def compare_reference(config: Path, out: Path, cores: int) -> int:
         fam = fa.merge(fw_, on=["temperature_k", "ring_form", "orientation"], suffixes=("_a", "_w"), how="outer")
         fpa, fpw = fam.population_a.astype(float).fillna(0.0), fam.population_w.astype(float).fillna(0.0)
         fbig = (fpa > 0.01) | (fpw > 0.01)
-        ra, rw = sa[sa.molecule == m], sw[sw.molecule == m]
-        da = [abs(float(x) - float(y)) for x, y in zip(ra.a_value_kcal, rw.a_value_kcal) if x != "" and y != ""]
-        dg = [abs(float(x) - float(y)) for x, y in zip(ra.chair_dg_kcal, rw.chair_dg_kcal) if x != "" and y != ""]
+        ra, rw = a_values(runs["all"], m), a_values(runs["window"], m)
+        da = [abs(ra[t][0] - rw[t][0]) for t in ra if t in rw and ra[t][0] is not None and rw[t][0] is not None]
+        dg = [abs(ra[t][1] - rw[t][1]) for t in ra if t in rw and ra[t][1] is not None and rw[t][1] is not None]
         ga, gw = fresh_gradients(ma), fresh_gradients(mw)
         unchecked = cw[cw.frequency_checked.astype(str) == "False"]
         rows.append({"molecule": m, "status": "ok", "hessians": f"{gw['hessians']}/{ga['hessians']}",
@@ -242,9 +274,14 @@ def main(argv=None) -> int:
     ap.add_argument("--json", default=None, help="also write the results to this JSON file")
     ap.add_argument("--reference", default=None, help="a configuration: compare every Hessian against the window")
     ap.add_argument("--out", default="results/bench/window", help="output folder of --reference")
+    ap.add_argument("--compare-only", action="store_true", help="with --reference: compare the folders already in --out")
+    ap.add_argument("--from-run", default=None,
+                    help="with --reference: a finished run folder of that configuration; both variants rerun only "
+                         "the thermo and ensemble stages on copies of it (no new optimisations)")
     args = ap.parse_args(argv)
     if args.reference:
-        return compare_reference(Path(args.reference), Path(args.out), args.cores)
+        return compare_reference(Path(args.reference), Path(args.out), args.cores,
+                                 Path(args.from_run) if args.from_run else None, rerun=not args.compare_only)
     groups = args.groups.split(",") if args.groups else (QUICK if args.quick else GROUPS)
     variants = args.variants.split(",") if args.variants else (["default"] if args.quick else list(VARIANTS))
     info = C.machine()
