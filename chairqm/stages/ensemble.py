@@ -223,6 +223,7 @@ def run(cfg, plan, name, threads=1):
     requested = settings.get("refine") is not None
     refined = requested and apply_refinement(folder, confs)
     usable = [c for c in confs if c["usable"]]
+    by_id = {c["conformer"]: c for c in confs}
     out = {"molecule": name, "smiles": p.smiles, "reference": p.reference, "status": "ok", "reason": "",
            "refined": bool(refined), "temperatures": [], "curve": {"temperature_k": CURVE_T, "families": {}}}
     failed_before = upstream_failure(name)
@@ -249,6 +250,11 @@ def run(cfg, plan, name, threads=1):
                 # the one chair-gap axis: the refined chairs' (negative: GFN2-xTB alone prefers the other chair)
                 row["unrefined"]["chair_dg_kcal"] = cq_ens.on_axis(row_u["chair_dg_kcal"], row_u["preferred_chair"],
                                                                    row["preferred_chair"])
+            # the other rings' state in each family's lowest conformer (a family is the analysed ring's form)
+            lowest = cp.drop_duplicates(["ring_form", "orientation"])
+            other = {(r.ring_form, r.orientation): by_id[r.conformer].get("other_rings", "")
+                     for r in lowest.itertuples()}
+            fam["other_rings"] = [other.get((r.ring_form, r.orientation), "") for r in fam.itertuples()]
             fam_frames.append(fam)
             out["temperatures"].append(row)
         for c in confs:

@@ -37,7 +37,8 @@ def refine(settings=None) -> list[str]:
 
 def families(settings) -> list[str]:
     from ..ensemble import FAMILY_COLUMNS
-    return list(FAMILY_COLUMNS) + (["g_rel_unrefined_kcal", "population_unrefined"] if _refined(settings) else [])
+    return (list(FAMILY_COLUMNS) + (["g_rel_unrefined_kcal", "population_unrefined"] if _refined(settings) else [])
+            + ["other_rings"])
 
 
 def conformers(settings) -> list[str]:

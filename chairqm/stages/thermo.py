@@ -134,7 +134,8 @@ def _final_list(p, minima, recs, work, settings):
         rec = recs[cid]
         checked = rec.get("frequency_checked", True)
         usable = rec["status"] == "ok" and (not checked or rec["proof"]["n_imaginary"] == 0)
-        meas = rec.get("measured") or {k: c.get(k) for k in ("ring_form", "q", "theta", "phi", "orientation")}
+        meas = rec.get("measured") or {k: c.get(k) for k in ("ring_form", "q", "theta", "phi", "orientation",
+                                                             "other_rings")}
         confs.append({"conformer": cid, "seed": c["seed"], "usable": usable,
                       "status": rec["status"] if rec["status"] != "ok" or usable else "saddle",
                       "reason": rec.get("reason", ""), "degeneracy": c["degeneracy"], **meas,
