@@ -27,6 +27,7 @@ Hessians computed, and the gradient calls a fresh run of each variant makes (min
 mode-following re-optimisations of the frequency-checked conformers, read from the per-conformer records),
 and b = RT ln(d_i/d_0) − Δ(G − E)_i of every conformer of the full run (chairqm.frequency_window).
   nice -n 10 python benchmarks/avalue.py --reference configs/reference.yaml --out results/bench/window
+Hessian split (--hessian-split): one conformer's Hessian serially and over --cores processes.
 With --from-run RUN (a finished run of the same configuration) both variants rerun only the thermo and
 ensemble stages, through the stage runner, on copies of RUN.
 """
@@ -265,6 +266,46 @@ def compare_reference(config: Path, out: Path, cores: int, stages_only: Path | N
     return 0
 
 
+def hessian_split(cores: int, repeats: int = 3) -> int:
+    """One conformer's Hessian (methylcyclohexane, equatorial chair, GFN2-xTB) computed serially and split
+    over `cores` processes (chairqm.vibrations.hessian_run with an executor of cores − 1 spawned workers,
+    warmed up first); median wall seconds of `repeats` runs each, interleaved, fresh cache folders."""
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    import numpy as np
+    from ase import Atoms
+
+    from chairqm import vibrations as V
+    from chairqm.seeds import build_seeds
+    settings = C.default_settings()
+    p = C.perceive("methylcyclohexane", "CC1CCCCC1")
+    seed = [s for s in build_seeds(p.mol, p.ring, p.substituents, settings["seeds"]) if s.kept][0]
+    r = C.optimise_and_check(p, seed.positions, "auto", settings)
+    atoms = Atoms([a.GetSymbol() for a in p.mol.GetAtoms()], positions=r["positions"])
+    factory = C.calc_factory(p, settings)
+    times = {"serial": [], "split": []}
+    same = True
+    with tempfile.TemporaryDirectory() as tmp, \
+            ProcessPoolExecutor(max_workers=cores - 1, mp_context=mp.get_context("spawn")) as ex:
+        V.hessian_run(atoms, factory, Path(tmp) / "warm", executor=ex)          # workers import once
+        for k in range(repeats):
+            t0 = time.perf_counter()
+            a = V.hessian_run(atoms, factory, Path(tmp) / f"s{k}")
+            times["serial"].append(time.perf_counter() - t0)
+            t0 = time.perf_counter()
+            b = V.hessian_run(atoms, factory, Path(tmp) / f"p{k}", executor=ex)
+            times["split"].append(time.perf_counter() - t0)
+            same = same and np.array_equal(a.hessian, b.hessian)
+    C.print_machine()
+    print(f"# one Hessian of methylcyclohexane ({6 * len(atoms)} gradients), serial against split over {cores} "
+          f"processes; median of {repeats}, interleaved; bitwise identical: {same}")
+    med = {k: float(np.median(v)) for k, v in times.items()}
+    print(C.table([{"mode": k, "median_wall_s": med[k], "runs": " ".join(f"{x:.2f}" for x in v),
+                    "ratio_to_serial": med[k] / med["serial"]} for k, v in times.items()], floatfmt=".3g"))
+    return 0
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="one small group, default settings only")
@@ -274,11 +315,14 @@ def main(argv=None) -> int:
     ap.add_argument("--json", default=None, help="also write the results to this JSON file")
     ap.add_argument("--reference", default=None, help="a configuration: compare every Hessian against the window")
     ap.add_argument("--out", default="results/bench/window", help="output folder of --reference")
+    ap.add_argument("--hessian-split", action="store_true", help="time one Hessian serially and split over --cores")
     ap.add_argument("--compare-only", action="store_true", help="with --reference: compare the folders already in --out")
     ap.add_argument("--from-run", default=None,
                     help="with --reference: a finished run folder of that configuration; both variants rerun only "
                          "the thermo and ensemble stages on copies of it (no new optimisations)")
     args = ap.parse_args(argv)
+    if args.hessian_split:
+        return hessian_split(args.cores)
     if args.reference:
         return compare_reference(Path(args.reference), Path(args.out), args.cores,
                                  Path(args.from_run) if args.from_run else None, rerun=not args.compare_only)
