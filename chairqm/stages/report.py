@@ -12,12 +12,13 @@ from . import tables
 from .records import read_xyz
 
 
-def calibrate_rows(rows, settings) -> str:
+def calibrate_rows(rows, settings, cal=False) -> str:
     """Calibrated value and 95 % prediction interval for each row's A-value (or, for rings with several
     groups, its chair gap), from the packaged calibration whose settings match this run, and only at the
     calibration's own temperature (chairqm.calibration.applies_at); returns the note for provenance."""
     from .. import calibration as cq_cal
-    cal = cq_cal.load_matching(settings)
+    if cal is False:                   # not looked up by the caller
+        cal = cq_cal.load_matching(settings)
     if cal is None:
         return ("no calibration matches these settings (method, engine, solvent, thermochemistry"
                 + (", DFT refinement level" if settings.get("refine") is not None else "")
@@ -133,13 +134,13 @@ def run(cfg, plan, name=None, threads=1):
     from .. import report as cq_report
     settings = cfg["settings"]
     rows = summary_rows(cfg, plan)
-    note = calibrate_rows(rows, settings)
+    from .. import calibration as cq_cal
+    cal = cq_cal.load_matching(settings)
+    note = calibrate_rows(rows, settings, cal)
     summary = tables.frame(rows, tables.summary(settings))
     summary["flag"] = summary["flag"].map(lambda v: "true" if bool(v) else "false")
     fileio.write_csv("summary.csv", summary, significant_digits=fileio.SUMMARY_SIGNIFICANT_DIGITS)
     prov = provenance(cfg, plan, note)
-    from .. import calibration as cq_cal
-    cal = cq_cal.load_matching(settings)
     prov["calibration_temperature_k"] = None if cal is None else float(cal.temperature_k)
     fileio.write_json("provenance.json", prov)
     write_db(plan)
