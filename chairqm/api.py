@@ -203,6 +203,21 @@ def resolve_profiles(extra) -> list[str]:
     return out
 
 
+def _output_folder(out) -> Path:
+    """The output folder, absolute; ChairqmError when it is a file, lies under a file, or cannot be
+    created or written (checked before anything is validated or written)."""
+    out = Path(out).resolve()
+    for p in [out, *out.parents]:
+        if p.exists() and not p.is_dir():
+            what = "is a file" if p == out else f"lies inside {p}, which is a file"
+            raise ChairqmError(f"output folder {out} {what}: choose a folder with --out")
+    existing = next(p for p in [out, *out.parents] if p.exists())
+    if not os.access(existing, os.W_OK | os.X_OK):
+        what = "is read-only" if existing == out else f"cannot be created: {existing} is read-only"
+        raise ChairqmError(f"output folder {out} {what} for this user: choose a writable folder with --out")
+    return out
+
+
 def _lock_output(out: Path):
     """One chairqm run per output folder: an exclusive advisory lock on OUT/.chairqm/run.lock, released
     by the kernel when the process dies, so a killed run never blocks the rerun (Snakemake's own lock
@@ -278,30 +293,117 @@ class Progress:
         self.emit(f"  {t // 60:3d}:{t % 60:02d}  {stage:<9} {(mol or 'all molecules'):<{self.width}}  {what}")
 
 
+VALID_CONFIG = Path(".chairqm") / "valid-config.yaml"
+
+
+def screen(config_path: Path) -> tuple[list[dict], list[dict]]:
+    """Split a configuration's molecules into those that can run and those refused: (valid entries,
+    [{"name", "reason"}] refused). A molecule is refused for a problem of its own entry (schema, a name
+    used before, its structure, size limits); a problem of the configuration as a whole (YAML, settings)
+    raises ChairqmError as `check` does."""
+    from . import config as cq_config
+    from .plan import perceive_entry
+    raw = cq_config.read(config_path)
+    if not isinstance(raw, dict) or not isinstance(raw.get("molecules"), list) or not raw["molecules"]:
+        cq_config.validate(raw, base_dir=Path(config_path).parent)     # raises with the usual message
+    valid, refused, seen = [], [], set()
+    for i, entry in enumerate(raw["molecules"]):
+        name = entry.get("name") if isinstance(entry, dict) and isinstance(entry.get("name"), str) else None
+        label = name or f"molecules[{i}]"
+        try:
+            cq_config.validate({"molecules": [entry]})
+        except ChairqmError as exc:
+            refused.append({"name": label, "reason": "; ".join(
+                l.replace("molecules[0]", f"molecules[{i}]") for l in str(exc).splitlines())})
+            continue
+        if name.casefold() in seen:
+            refused.append({"name": label, "reason": f"molecule name '{name}' is used twice (names must be unique, "
+                                                     "case-insensitively, because each becomes a folder)"})
+            continue
+        seen.add(name.casefold())
+        valid.append(entry)
+    if not valid:
+        raise ChairqmError("\n".join(f"{r['name']}: {r['reason']}" for r in refused))
+    cfg = cq_config.validate({**raw, "molecules": valid}, base_dir=Path(config_path).parent)
+    runnable = []
+    for entry in cfg["molecules"]:
+        try:
+            perceive_entry(entry, Path(cfg["_base_dir"]), cfg["settings"])
+        except ChairqmError as exc:
+            refused.append({"name": entry["name"], "reason": "; ".join(
+                l[len(entry["name"]) + 2:] if l.startswith(entry["name"] + ": ") else l for l in str(exc).splitlines())})
+            continue
+        runnable.append(entry)
+    keep = {id(e) for e in runnable}
+    valid = [raw_e for raw_e, e in zip(valid, cfg["molecules"]) if id(e) in keep]
+    order = {(e.get("name") if isinstance(e, dict) else None) or f"molecules[{i}]": i
+             for i, e in reversed(list(enumerate(raw["molecules"])))}
+    refused.sort(key=lambda r: order.get(r["name"], len(order)))       # the configuration's order
+    if not valid:
+        raise ChairqmError("\n".join(f"{r['name']}: {r['reason']}" for r in refused))
+    return valid, refused
+
+
+def _valid_config(config_path: Path, out: Path, valid: list[dict], refused: list[dict]) -> Path:
+    """OUT/.chairqm/valid-config.yaml: the configuration with only the runnable molecules (structure-file
+    paths made absolute) and the refused ones under `refused`, which the report lists."""
+    import yaml
+
+    from . import config as cq_config
+    from . import fileio
+    raw = dict(cq_config.read(config_path))
+    base = Path(config_path).resolve().parent
+    mols = []
+    for m in valid:
+        m = dict(m)
+        if isinstance(m.get("file"), str) and not Path(m["file"]).is_absolute():
+            m["file"] = str(base / m["file"])
+        mols.append(m)
+    raw["molecules"] = mols
+    raw["refused"] = refused
+    path = out / VALID_CONFIG
+    fileio.write_text(path, f"# {Path(config_path).resolve()} without the molecules it refuses "
+                            "(chairqm run --skip-invalid)\n" + yaml.safe_dump(raw, sort_keys=False))
+    return path
+
+
 def run(config, out=None, cores: int = 2, until: str | None = None, profile: str | None = None,
         snakemake_args: Iterable[str] = (), verbose: bool | None = None,
-        progress: bool | Callable[[str], None] = True) -> RunResult:
+        progress: bool | Callable[[str], None] = True, skip_invalid: bool = False) -> RunResult:
     """Run the workflow on a configuration (a YAML path or a mapping) into `out` (default
     results/<config name>); returns the finished run. `until` stops after a stage; `profile` is a
     packaged Snakemake profile name (laptop, slurm) or a profile folder; `snakemake_args` go to Snakemake
     unchanged. By default Snakemake's own output goes to OUT/.chairqm/snakemake.log and a line per
     molecule and stage is printed (`progress=False` for none, or a callable that takes each line);
-    `verbose=True` (or CHAIRQM_VERBOSE=1) shows Snakemake's output instead.
+    `verbose=True` (or CHAIRQM_VERBOSE=1) shows Snakemake's output instead. `skip_invalid=True` runs the
+    molecules that pass `check` and lists the refused ones, with their reasons, as failed rows of
+    summary.csv (a problem of the configuration as a whole still raises).
 
     Raises ChairqmError for input problems and WorkflowError when the workflow stops with an error."""
     if out is None:
         if not isinstance(config, (str, os.PathLike)):
             raise ChairqmError("a configuration given as a mapping needs an output folder (out=...)")
         out = Path("results") / Path(config).stem
-    out = Path(out).resolve()
+    out = _output_folder(out)
     config_path = _as_config_path(config, out)
+    refused = []
+    if skip_invalid:
+        valid, refused = screen(config_path)
+        if refused:
+            config_path = _valid_config(config_path, out, valid, refused)
+            say = progress if callable(progress) else (lambda line: print(line, file=sys.stderr, flush=True))
+            for r in refused:
+                say(f"chairqm: skipping {r['name']}: {r['reason']}")
     cfg, plan = prepare(config_path)
     stages = available_stages()
     if until is not None and until not in stages:
         raise ChairqmError(f"--until {until}: the stages are {', '.join(stages)}")
     extra = resolve_profiles((["--profile", str(profile)] if profile else []) + list(snakemake_args))
     target = "all" if until is None else f"until_{until}"
-    out.mkdir(parents=True, exist_ok=True)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise ChairqmError(f"cannot create output folder {out}: {exc.strerror or exc}") from None
     for m in plan.molecules:
         if (out / m.name).is_symlink():
             raise ChairqmError(f"{out / m.name} is a symbolic link: chairqm writes only inside the output folder; "
@@ -362,11 +464,47 @@ def run(config, out=None, cores: int = 2, until: str | None = None, profile: str
         if lock is not None:
             lock.close()
     if returncode != 0:
-        msg = f"the workflow stopped with an error (exit {returncode}); logs are in {out}/<molecule>/logs/"
+        msg = f"the workflow stopped with an error (exit {returncode}); " + _where_logs(out, log_path if not show else None)
         if not show:
-            msg += f" and {log_path}:\n" + _log_tail(log_path)
+            msg += ":\n" + _log_tail(log_path)
         raise WorkflowError(msg, returncode, out)
     return RunResult(out, until=until, returncode=0, molecules=plan.names())
+
+
+def _failed_job_logs(out: Path, log_path: Path | None) -> list[Path]:
+    """The log files Snakemake names for its failed jobs ("log: PATH (check log file(s) ...)" after
+    "Error in rule"), as paths inside the output folder."""
+    import re
+    try:
+        text = log_path.read_text(errors="replace") if log_path is not None else ""
+    except OSError:
+        return []
+    found = []
+    for block in text.split("Error in rule")[1:]:
+        m = re.search(r"^\s*log:\s*(\S+)", block[:4000], re.M)
+        if m:
+            p = out / m.group(1)
+            if p not in found:
+                found.append(p)
+    return found
+
+
+def _where_logs(out: Path, log_path: Path | None) -> str:
+    """Where to read about a stopped workflow: the failed jobs' own logs when Snakemake's log names
+    them, else the two log folders (per molecule, and the run's for the report stage), then Snakemake's log."""
+    jobs = _failed_job_logs(out, log_path)
+    where = ("see " + ", ".join(str(p) + _last_line(p) for p in jobs) if jobs else
+             f"logs are in {out}/<molecule>/logs/ (molecule stages) and {out}/logs/ (the report stage)")
+    return where + (f" and Snakemake's log {log_path}" if log_path is not None else "")
+
+
+def _last_line(path: Path) -> str:
+    """' (last line: ...)' of a job's log, usually the exception that stopped it; '' when empty."""
+    try:
+        lines = [l.strip() for l in path.read_text(errors="replace").splitlines() if l.strip()]
+    except OSError:
+        return ""
+    return f" (last line: {lines[-1][:300]})" if lines else ""
 
 
 def _log_tail(path: Path, n: int = 15) -> str:

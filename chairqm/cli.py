@@ -93,11 +93,15 @@ def report_run(result, until) -> int:
     print(answers_table(result.summary))
     report = result.report
     print(f"\nchairqm: results in {out}" + (f"; report: {report}" if report else ""))
+    code = 0
+    for problem in result.report_problems:
+        print(f"chairqm: {problem} (see {out / 'logs' / 'report.log'})", file=sys.stderr)
+        code = 1
     failed = result.failed
     if failed:
         print(f"chairqm: {len(failed)} molecule(s) failed: {', '.join(failed)} (see summary.csv)", file=sys.stderr)
-        return 1
-    return 0
+        code = 1
+    return code
 
 
 def _run_options(args, extra) -> dict:
@@ -105,11 +109,12 @@ def _run_options(args, extra) -> dict:
             "verbose": True if getattr(args, "verbose", False) else None}
 
 
-def run_workflow(config_path, out, cores=2, until=None, snakemake_args=(), verbose=None, profile=None) -> int:
+def run_workflow(config_path, out, cores=2, until=None, snakemake_args=(), verbose=None, profile=None,
+                 skip_invalid=False) -> int:
     """Run the workflow and print its answers; the exit code. Input errors raise ChairqmError."""
     try:
         result = api.run(config_path, out, cores=cores, until=until, profile=profile,
-                         snakemake_args=snakemake_args, verbose=verbose)
+                         snakemake_args=snakemake_args, verbose=verbose, skip_invalid=skip_invalid)
     except api.WorkflowError as exc:
         for line in str(exc).splitlines():
             print(f"chairqm: {line}", file=sys.stderr)
@@ -119,7 +124,8 @@ def run_workflow(config_path, out, cores=2, until=None, snakemake_args=(), verbo
 
 def cmd_run(args, extra) -> int:
     out = args.out or default_out(args.config)
-    return run_workflow(args.config, out, cores=args.cores, until=args.until, **_run_options(args, extra))
+    return run_workflow(args.config, out, cores=args.cores, until=args.until, skip_invalid=args.skip_invalid,
+                        **_run_options(args, extra))
 
 
 def avalue_table(table) -> str:
@@ -244,6 +250,10 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--profile", help="Snakemake profile: a packaged one by name (laptop, slurm) or a profile folder")
     r.add_argument("--verbose", action="store_true",
                    help="show Snakemake's own output instead of one line per molecule and stage (or CHAIRQM_VERBOSE=1)")
+    r.add_argument("--skip-invalid", action="store_true",
+                   help="run the molecules that pass `chairqm check` and list the refused ones, with the reason, "
+                        "as failed rows of summary.csv (exit code 1); without it one refused molecule stops the "
+                        "run (exit 2). Problems of the configuration as a whole still stop it")
     a = sub.add_parser("avalue", help="compute the A-values of groups, e.g. chairqm avalue \"[*]C1CC1\" \"[*]C#N\"")
     a.add_argument("fragment", nargs="+", help="each group as SMILES with one attachment point [*]")
     a.add_argument("--out", help="output folder (default results/avalue-<group> for one group, results/avalues "

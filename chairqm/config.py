@@ -126,22 +126,116 @@ def validate(cfg, base_dir: Path | None = None) -> dict:
     return out
 
 
-def load(path) -> dict:
-    """Load and validate a YAML configuration file (yaml.safe_load: no arbitrary objects)."""
+#: Largest configuration file read (bytes), and most YAML nodes it may expand to once anchors and aliases
+#: are followed: a real configuration of a few hundred molecules is far below both; "billion laughs"
+#: documents (aliases of aliases) are refused before anything walks them.
+MAX_CONFIG_BYTES = 10_000_000
+MAX_EXPANDED_NODES = 200_000
+
+
+class _StrictLoader(yaml.SafeLoader):
+    """yaml.SafeLoader that refuses a key given twice in one mapping (SafeLoader keeps the last silently)."""
+
+    def construct_mapping(self, node, deep=False):
+        if isinstance(node, yaml.MappingNode):
+            seen = {}
+            for key_node, _ in node.value:
+                if key_node.tag == "tag:yaml.org,2002:merge":
+                    continue
+                key = self.construct_object(key_node, deep=True)
+                try:
+                    hash(key)
+                except TypeError:
+                    continue             # SafeLoader's own error names an unhashable key
+                if key in seen:
+                    raise yaml.constructor.ConstructorError(
+                        "while constructing a mapping", node.start_mark,
+                        f"duplicate key {key!r} (first at line {seen[key] + 1}): give each key once",
+                        key_node.start_mark)
+                seen[key] = key_node.start_mark.line
+        return super().construct_mapping(node, deep=deep)
+
+
+def _expanded_size(node, memo: dict) -> int:
+    """Number of nodes of the document once every alias is replaced by a copy of its anchor's node."""
+    k = id(node)
+    if k in memo:
+        return memo[k]
+    memo[k] = 1                          # a recursive alias counts once (SafeLoader refuses it later)
+    if isinstance(node, yaml.MappingNode):
+        n = 1 + sum(_expanded_size(a, memo) + _expanded_size(b, memo) for a, b in node.value)
+    elif isinstance(node, yaml.SequenceNode):
+        n = 1 + sum(_expanded_size(a, memo) for a in node.value)
+    else:
+        n = 1
+    memo[k] = n
+    return n
+
+
+def _decode(path: Path, data: bytes) -> str:
+    """UTF-8 (with or without a byte-order mark) or UTF-16/UTF-32 with a byte-order mark, as YAML allows;
+    anything else is refused with the first offending byte."""
+    import codecs
+    for bom, enc in ((codecs.BOM_UTF32_LE, "utf-32"), (codecs.BOM_UTF32_BE, "utf-32"),
+                     (codecs.BOM_UTF8, "utf-8-sig"), (codecs.BOM_UTF16_LE, "utf-16"), (codecs.BOM_UTF16_BE, "utf-16")):
+        if data.startswith(bom):
+            try:
+                return data.decode(enc)
+            except UnicodeDecodeError as exc:
+                raise ChairqmError(f"{path}: starts with a {enc.upper()} byte-order mark but is not valid {enc.upper()} "
+                                   f"text ({exc.reason} at byte {exc.start}): save it as UTF-8") from None
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = data[:exc.start].count(b"\n") + 1
+        hint = (" (it looks like UTF-16 without a byte-order mark)" if b"\x00" in data[:200] else "")
+        raise ChairqmError(f"{path}: not UTF-8 text: byte 0x{data[exc.start]:02x} at line {line}{hint}: "
+                           "save the file as UTF-8") from None
+
+
+def read(path) -> object:
+    """The YAML document of a configuration file, not yet validated: safe constructors only (no
+    arbitrary objects), every key once per mapping, one document, at most MAX_EXPANDED_NODES nodes with
+    aliases expanded. Raises ChairqmError saying what to change."""
     path = Path(path)
     if not path.is_file():
         raise ChairqmError(f"configuration file not found: {path}")
     try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ChairqmError(f"cannot read configuration {path}: {exc}") from None
+        size = path.stat().st_size
+        if size > MAX_CONFIG_BYTES:
+            raise ChairqmError(f"{path}: {size} bytes; a configuration may be at most {MAX_CONFIG_BYTES} bytes")
+        data = path.read_bytes()
+    except OSError as exc:
+        raise ChairqmError(f"cannot read configuration {path}: {exc.strerror or exc}") from None
+    text = _decode(path, data)
+    if "\x00" in text:
+        raise ChairqmError(f"{path}: contains NUL characters (UTF-16 without a byte-order mark?): save it as UTF-8")
     try:
-        cfg = yaml.safe_load(text)
+        loader = _StrictLoader(text)
+        try:
+            node = loader.get_single_node()
+            if node is not None:
+                n = _expanded_size(node, {})
+                if n > MAX_EXPANDED_NODES:
+                    raise ChairqmError(f"{path}: its anchors and aliases (&name / *name) expand to {n} YAML nodes, "
+                                       f"more than {MAX_EXPANDED_NODES}: write the configuration out without "
+                                       "nested aliases")
+            return loader.construct_document(node) if node is not None else None
+        finally:
+            loader.dispose()
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
         raise ChairqmError(f"{path}: not valid YAML{where}: {problem}") from None
+    except RecursionError:
+        raise ChairqmError(f"{path}: nested too deeply to be a configuration") from None
+
+
+def load(path) -> dict:
+    """Load and validate a YAML configuration file (see :func:`read`)."""
+    path = Path(path)
+    cfg = read(path)
     out = validate(cfg, base_dir=path.parent)
     out["_config_path"] = str(path.resolve())
     return out

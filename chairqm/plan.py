@@ -59,15 +59,28 @@ def make_plan(cfg: dict) -> Plan:
     mols, problems = [], []
     for entry in cfg["molecules"]:
         try:
-            mols.extend(perceive(entry, base, settings))
+            mols.extend(perceive_entry(entry, base, settings))
         except ChairqmError as exc:
             problems.append(str(exc))
-    names = [m.name for m in mols]
-    for n in sorted({n for n in names if names.count(n) > 1}):
-        problems.append(f"molecule name '{n}' occurs twice after stereoisomer expansion: rename one")
+    # folder names: two that differ only in case are one folder on a case-insensitive file system
+    folded = [m.name.casefold() for m in mols]
+    for n in sorted({m.name for m, f in zip(mols, folded) if folded.count(f) > 1}, key=str.casefold):
+        problems.append(f"molecule name '{n}' occurs twice after stereoisomer expansion (names are compared "
+                        "ignoring case, because each becomes a folder): rename one")
     if settings.get("analysis", {}).get("reference_groups", True) and not problems:
         mols.extend(_reference_molecules(mols, settings, problems))
     return Plan(mols, problems)
+
+
+def perceive_entry(entry: dict, base, settings: dict) -> list[Perceived]:
+    """One configuration entry perceived (stereoisomers expanded) and screened (size limits, isotope labels,
+    chairqm.screening); raises ChairqmError naming the molecule."""
+    from . import screening
+    out = perceive(entry, base, settings)
+    found = [line for p in out for line in screening.problems(p, settings)]
+    if found:
+        raise ChairqmError("\n".join(dict.fromkeys(found)))
+    return out
 
 
 def _on_ring_carbon(m):

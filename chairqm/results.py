@@ -76,6 +76,16 @@ class RunResult:
         return sorted(set(s.loc[s["status"] != "ok", "molecule"]))
 
     @property
+    def report_problems(self) -> list[str]:
+        """What the report stage could not build (its database or page; a plain one stands in), from
+        provenance.json; empty when everything was built."""
+        import json
+        try:
+            return list(json.loads((self.out / "provenance.json").read_text()).get("report_problems") or [])
+        except (OSError, ValueError):
+            return []
+
+    @property
     def report(self) -> Path | None:
         p = self.out / "report.html"
         return p if p.is_file() else None

@@ -9,6 +9,7 @@ from pathlib import Path
 
 from .. import fileio
 from . import tables
+from .faults import fault
 from .records import read_xyz
 
 
@@ -69,6 +70,11 @@ def summary_rows(cfg, plan) -> list[dict]:
                          "refined": bool(ens.get("refined")),
                          "chair_dg_unrefined_kcal": (r.get("unrefined") or {}).get("chair_dg_kcal"),
                          "a_value_unrefined_kcal": (r.get("unrefined") or {}).get("a_value_kcal")})
+    for r in cfg.get("refused") or []:       # chairqm run --skip-invalid: refused before anything ran
+        for t in cfg["settings"]["temperatures_k"]:
+            rows.append({"molecule": r["name"], "temperature_k": float(t), "status": "failed",
+                         "reason": f"refused, not run: {r['reason']}", "n_conformers": 0, "flag": True,
+                         "flag_reason": "no result"})
     return rows
 
 
@@ -126,8 +132,20 @@ def write_db(plan, path="conformers.db"):
             db.write(atoms, **kv)
     del db
     if not tmp.exists():                 # nothing written: still a valid, empty database
-        connect(str(tmp), type="db", append=False).count()
+        empty_db(tmp)
     os.replace(tmp, path)
+
+
+def empty_db(path) -> None:
+    """An ASE database with no rows at `path`: the schema is made by opening a connection explicitly and
+    committing (ASE creates the file lazily, on the first write or query, which is not always made)."""
+    from ase.db import connect
+    db = connect(str(path), type="db", append=False)
+    with db:                             # opens, initialises the tables, commits on leaving
+        db.count()
+    if not Path(path).is_file():         # pragma: no cover - a library that still wrote nothing
+        import sqlite3
+        sqlite3.connect(str(path)).close()
 
 
 def run(cfg, plan, name=None, threads=1):
@@ -142,9 +160,50 @@ def run(cfg, plan, name=None, threads=1):
     fileio.write_csv("summary.csv", summary, significant_digits=fileio.SUMMARY_SIGNIFICANT_DIGITS)
     prov = provenance(cfg, plan, note)
     prov["calibration_temperature_k"] = None if cal is None else float(cal.temperature_k)
+    # summary.csv and provenance.json are the answer; the database and the page are views of it. An error
+    # in a view must not cost the answer (Snakemake deletes every output of a failed job), so it is
+    # written to the job's log and to provenance.json ("report_problems"), the view is replaced by a plain
+    # one, and `chairqm run` exits non-zero naming the problem.
+    problems = []
+    try:
+        if fault("crash", "report/conformers.db"):
+            raise RuntimeError("injected fault: the database could not be written")
+        write_db(plan)
+    except Exception as exc:
+        problems.append(_problem("conformers.db", exc))
+        fallback = Path(".conformers.db.fallback.part")
+        empty_db(fallback)
+        os.replace(fallback, "conformers.db")
+    try:
+        if fault("crash", "report/report.html"):
+            raise RuntimeError("injected fault: the page could not be built")
+        cq_report.write_report(Path("."), prov, summary_rows=summary.to_dict("records"))
+    except Exception as exc:
+        problems.append(_problem("report.html", exc))
+        fileio.write_text("report.html", plain_page(summary, problems))
+    if problems:
+        prov["report_problems"] = problems
     fileio.write_json("provenance.json", prov)
-    write_db(plan)
-    cq_report.write_report(Path("."), prov, summary_rows=summary.to_dict("records"))
+
+
+def _problem(what: str, exc: Exception) -> str:
+    import sys
+    import traceback
+    traceback.print_exc(file=sys.stderr)             # into logs/report.log
+    return f"{what} could not be built ({type(exc).__name__}: {exc}); a plain stand-in was written instead"
+
+
+def plain_page(summary, problems) -> str:
+    """A minimal self-contained page (the summary table and what went wrong) for when the full report
+    cannot be built."""
+    from html import escape
+    head = "".join(f"<th>{escape(str(c))}</th>" for c in summary.columns)
+    body = "".join("<tr>" + "".join(f"<td>{escape('' if v is None or v != v else str(v))}</td>" for v in row)
+                   + "</tr>" for row in summary.itertuples(index=False))
+    notes = "".join(f"<li>{escape(p)}</li>" for p in problems)
+    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>chairqm summary</title></head>"
+            f"<body><h1>chairqm summary</h1><p>The full report could not be built:</p><ul>{notes}</ul>"
+            f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></body></html>\n")
 
 
 def write_empty(name, settings, message):

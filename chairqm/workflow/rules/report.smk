@@ -7,7 +7,8 @@ rule report:
     output:
         **stage_outputs("report"),
     params:
-        fp=fingerprint("report", project=CFG.get("project", ""), calibration=cq_calibration.file_fingerprint()),
+        fp=fingerprint("report", project=CFG.get("project", ""), calibration=cq_calibration.file_fingerprint(),
+                       **({"refused": CFG["refused"]} if CFG.get("refused") else {})),
     log:
         "logs/report.log",
     shell:
