@@ -15,7 +15,8 @@ energies of hundreds of hartree lose no precision.
 
 Orientation strings are the seeds stage's: 'id=label' items joined by ';' (e.g. 's1=axial;s2=equatorial').
 Chair labels are 'axial'/'equatorial'; twist-boat (and other non-chair) labels 'pseudo-axial',
-'pseudo-equatorial', 'isoclinal'; boat labels add 'flagpole' and 'bowsprit'.
+'pseudo-equatorial', 'isoclinal'; boat labels add 'flagpole' and 'bowsprit'; in any form, the one
+exocyclic bond of a trigonal ring N (amide, carbamate, N-aryl) is 'planar' (chairqm.ring.orientation).
 """
 
 from __future__ import annotations
@@ -31,7 +32,8 @@ from .units import KB_HARTREE, KCAL_PER_HARTREE, R_KCAL
 
 AXIAL_LABELS = ("axial", "pseudo-axial")
 CHAIR = "chair"
-RING_FLIP = {"axial": "equatorial", "equatorial": "axial"}
+# a trigonal ring N's one exocyclic bond (amide, N-aryl) is 'planar' in both chairs
+RING_FLIP = {"axial": "equatorial", "equatorial": "axial", "planar": "planar"}
 FAMILY_COLUMNS = ["temperature_k", "ring_form", "orientation", "axial", "g_rel_kcal", "population",
                   "n_conformers"]
 
@@ -317,7 +319,7 @@ def chair_summary(families_df: pd.DataFrame, substituent_ids) -> dict:
         bad = {i: omap[i] for i in ids if omap[i] not in RING_FLIP}
         if bad:
             raise ChairqmError(f"chair family '{row['orientation']}' labels {bad}; chair labels must be "
-                               "'axial' or 'equatorial'")
+                               "'axial', 'equatorial' or 'planar'")
         merged_ids.update(k for k in omap if k not in ids)
         key = tuple(omap[i] for i in ids)
         sets.setdefault(key, []).append(row)

@@ -43,6 +43,10 @@ Q_PLANAR_MAX = 0.10          # Å: total puckering amplitude below this → 'oth
 CHAIR_THETA_MAX = 35.0       # deg: chair if theta <= 35 or theta >= 145
 EQUATOR_THETA_MIN = 65.0     # deg: boat / twist-boat if 65 <= theta <= 115
 PHI_TOL = 12.0               # deg: |phi - ideal| allowed for boat, twist-boat, envelope, half-chair
+# deg: a ring atom whose ring bonds and one exocyclic bond have bond angles summing to at least this is
+# trigonal (tetrahedral: 328.4; planar: 360). GFN2-xTB minima measured here: N-acetyl-2-methylpiperidine
+# 355-360, N-phenyl-2-methylpiperidine 343-357, piperidine N-H and N-alkyl well below 340.
+PLANAR_ANGLE_SUM = 350.0
 ISOCLINAL_TOL = 20.0         # deg: slots whose |elevation| differ by less than this are 'isoclinal'
 
 FORMS = ("chair", "twist-boat", "boat", "half-chair", "envelope", "other")
@@ -252,6 +256,16 @@ def slot_elevations(positions, ring, k: int, normal=None) -> tuple[float, float]
     return e1, e2
 
 
+def _angle_sum(x, ring, k, first_atom) -> float:
+    a = x[ring[k]]
+    vecs = [x[ring[k - 1]] - a, x[ring[(k + 1) % len(ring)]] - a, x[first_atom] - a]
+    vecs = [v / np.linalg.norm(v) for v in vecs]
+    total = 0.0
+    for i, j in ((0, 1), (0, 2), (1, 2)):
+        total += math.degrees(math.acos(max(-1.0, min(1.0, float(vecs[i] @ vecs[j])))))
+    return total
+
+
 def orientation(positions, ring, ring_atom: int, first_atom: int, form: str) -> str:
     """Orientation label of the bond ring_atom–first_atom, measured from the geometry.
 
@@ -261,6 +275,9 @@ def orientation(positions, ring, ring_atom: int, first_atom: int, form: str) -> 
       chair:       'axial' if d > 0 else 'equatorial'
       boat:        at the bow and stern atoms (the two atoms farthest from the mean plane) 'flagpole'
                    if d > 0 else 'bowsprit'; at the other four atoms as for a twist-boat
+      any form:    'planar' if the ring atom is trigonal (the sum of its three bond angles, two in the
+                   ring and the one to this bond, at least PLANAR_ANGLE_SUM): the N of an amide, carbamate
+                   or N-aryl ring N, whose one exocyclic bond has no axial or equatorial side
       twist-boat, half-chair, envelope, other:
                    'pseudo-axial' if d > ISOCLINAL_TOL, 'pseudo-equatorial' if d < -ISOCLINAL_TOL,
                    else 'isoclinal' (a planar ring gives 'isoclinal' everywhere).
@@ -274,6 +291,8 @@ def orientation(positions, ring, ring_atom: int, first_atom: int, form: str) -> 
     d1, d2 = exocyclic_slots(x, ring, k)
     bond = x[first_atom] - x[ring_atom]
     bond = bond / np.linalg.norm(bond)
+    if _angle_sum(x, ring, k, first_atom) >= PLANAR_ANGLE_SUM:
+        return "planar"
     mine, other = (d1, d2) if bond @ d1 >= bond @ d2 else (d2, d1)
     d = (math.degrees(math.asin(min(1.0, abs(float(mine @ n)))))
          - math.degrees(math.asin(min(1.0, abs(float(other @ n))))))

@@ -76,6 +76,10 @@ TWIST_Q = 0.72          # Å, template amplitude of the twist-boats (MMFF94 cycl
 RING_TORSION_TOL = 10.0     # deg, flat-bottom half-width of the ring-torsion restraints
 RING_TORSION_K = 1.0e3      # force constant of those restraints (RDKit units, kcal/mol per rad^2)
 MAX_OTHER_RING_SETS = 16    # combinations of the other rings' states seeded per ring form (4^2: two rings)
+# An N-aryl ring N is a shallow pyramid (about 20 deg from planar, common practice): its exocyclic bond is
+# seeded tilted this fraction of the way from the in-plane bisector towards each tetrahedral slot (0.35:
+# about 18 deg, the largest tilt RDKit's embedding accepts for an sp2 N, tried here on N-phenylpiperidine).
+N_ARYL_TILT = 0.35
 SKELETON_TOL = 0.02         # Å, max deviation for two skeletons to be symmetry-equivalent
 # numpy's results can differ in the last bits between processes (memory alignment picks different SIMD
 # paths); coordinates are rounded at each hand-over so that the same input gives the same bytes.
@@ -166,6 +170,20 @@ class _Context:
     forcefield: str | None = None
     props: object = None
     others: list = field(default_factory=list)  # chairqm.molecule.Perceived.other_rings
+    planar: set = field(default_factory=set)    # ring positions of conjugated (trigonal) ring N atoms
+    tilted: set = field(default_factory=set)    # of those, the N-aryl ones (seeded as shallow pyramids)
+
+
+def planar_ring_nitrogen(mol, atom: int, ring_set) -> bool:
+    """True for a ring N with one exocyclic neighbour that RDKit perceives as conjugated (sp2): the N of
+    an amide, carbamate, urea, N-nitroso or N-aryl group on the ring. Its exocyclic bond starts in the
+    plane of the N and its ring neighbours; a tetrahedral slot contradicts RDKit's sp2 geometry bounds, so
+    embedding fails there, and the optimisation decides how far the N pyramidalises and to which side."""
+    a = mol.GetAtomWithIdx(atom)
+    if a.GetSymbol() != "N" or a.GetDegree() != 3 or a.GetFormalCharge() != 0:
+        return False
+    exo = [n for n in a.GetNeighbors() if n.GetIdx() not in ring_set]
+    return len(exo) == 1 and a.GetHybridization() == Chem.HybridizationType.SP2
 
 
 def _prepare(mol, ring, substituents, settings, other_rings=()) -> _Context:
@@ -202,6 +220,8 @@ def _prepare(mol, ring, substituents, settings, other_rings=()) -> _Context:
     ctx = _Context(mol=work, ring=ring, subs=list(substituents), settings=settings, ranks=ranks, exo=exo,
                    ref_tags=ref_tags, ref_bonds=ref_bonds, heavy=heavy, hydrogens=hydrogens,
                    others=[dict(o) for o in other_rings])
+    ctx.planar = {k for k, a in enumerate(ring) if planar_ring_nitrogen(work, a, ring_set)}
+    ctx.tilted = {k for k in ctx.planar if any(n.GetIsAromatic() for n in work.GetAtomWithIdx(ring[k]).GetNeighbors())}
     ctx.maps = symmetry.ring_automorphisms(work, ring)
     if AllChem.MMFFHasAllMoleculeParams(work):
         ctx.forcefield = "MMFF94"
@@ -223,8 +243,10 @@ def _skeleton(ctx, X, choice) -> dict:
     pos = {}
     for k, a in enumerate(ctx.ring):
         pos[a] = X[k]
-        if len(ctx.exo[k]) == 1 and is_trigonal_exocyclic(ctx.mol, a, ctx.exo[k][0]):
-            # C=O, C=CH2: in the plane of the ring atom and its two ring neighbours, on their bisector
+        if len(ctx.exo[k]) == 1 and (is_trigonal_exocyclic(ctx.mol, a, ctx.exo[k][0])
+                                     or (k in ctx.planar and k not in ctx.tilted)):
+            # C=O, C=CH2, and the one exocyclic bond of a planar ring N (amide, carbamate, urea): in the
+            # plane of the ring atom and its two ring neighbours, on their bisector
             d = (X[k] - X[k - 1]) + (X[k] - X[(k + 1) % 6])
             e = ctx.exo[k][0]
             pos[e] = np.round(X[k] + _bond_length(ctx.mol, a, e) * d / np.linalg.norm(d), DECIMALS_TEMPLATE)
@@ -232,6 +254,12 @@ def _skeleton(ctx, X, choice) -> dict:
         d1, d2 = ringgeo.exocyclic_slots(X, list(range(6)), k)
         up, down = (d1, d2) if d1[2] >= d2[2] else (d2, d1)
         slots = (down, up) if choice[k] else (up, down)
+        if k in ctx.tilted:
+            # N-aryl: a shallow pyramid, tilted from the bisector towards the chosen slot (both are seeded)
+            b = (X[k] - X[k - 1]) + (X[k] - X[(k + 1) % 6])
+            b = b / np.linalg.norm(b)
+            d = b + N_ARYL_TILT * (slots[0] - b)
+            slots = (d / np.linalg.norm(d),)
         for e, d in zip(ctx.exo[k], slots):
             pos[e] = np.round(X[k] + _bond_length(ctx.mol, a, e) * d, DECIMALS_TEMPLATE)
     return pos
@@ -260,8 +288,8 @@ def _choices(ctx):
             fixed.append(k)
         elif len(e) == 2 and ctx.ranks[e[0]] == ctx.ranks[e[1]]:
             continue
-        elif len(e) == 1 and is_trigonal_exocyclic(ctx.mol, a, e[0]):
-            continue                    # C=O, C=CH2: the optimisation puts it in the ring atom's plane
+        elif len(e) == 1 and (is_trigonal_exocyclic(ctx.mol, a, e[0]) or (k in ctx.planar and k not in ctx.tilted)):
+            continue                    # C=O, C=CH2, planar N: the optimisation decides its pyramidality
         else:
             free.append(k)
     return free, fixed

@@ -89,7 +89,7 @@ def fmt_coord(x, digits: int) -> str:
     return DASH if v is None else f"{v:.{digits}f}"
 
 
-ORIENT_SHORT = {"axial": "ax", "equatorial": "eq", "pseudo-axial": "p-ax", "pseudo-equatorial": "p-eq",
+ORIENT_SHORT = {"axial": "ax", "equatorial": "eq", "planar": "pl", "pseudo-axial": "p-ax", "pseudo-equatorial": "p-eq",
                 "pseudoaxial": "p-ax", "pseudoequatorial": "p-eq"}
 
 
