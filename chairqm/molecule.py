@@ -131,50 +131,9 @@ def _from_smiles(name: str, smiles: str) -> Chem.Mol:
 
 
 def _from_file(name: str, path: Path, charge) -> Chem.Mol:
-    if not path.is_file():
-        raise ChairqmError(f"{name}: structure file not found: {path}")
-    suffix = path.suffix.lower()
-    try:
-        if suffix in (".sdf", ".mol"):
-            if suffix == ".sdf":
-                supp = Chem.SDMolSupplier(str(path), removeHs=False, sanitize=False)
-                mols = [m for m in supp]
-                if len(mols) != 1:
-                    raise ChairqmError(f"{name}: {path.name} holds {len(mols)} records; give one molecule per file")
-                mol = mols[0]
-            else:
-                mol = Chem.MolFromMolFile(str(path), removeHs=False, sanitize=False)
-            if mol is None:
-                raise ChairqmError(f"{name}: cannot read {path.name} as a MOL/SDF record")
-            problem = _sanitize_message(mol)
-            if problem:
-                raise ChairqmError(f"{name}: {path.name} is not a valid molecule ({problem})")
-            if mol.GetNumConformers() and mol.GetConformer().Is3D():
-                Chem.AssignStereochemistryFrom3D(mol)
-            else:
-                Chem.AssignChiralTypesFromBondDirs(mol)
-                Chem.AssignStereochemistry(mol, cleanIt=True, force=True)
-            mol = Chem.AddHs(mol, addCoords=mol.GetNumConformers() > 0)
-        elif suffix == ".xyz":
-            from rdkit.Chem import rdDetermineBonds
-            mol = Chem.MolFromXYZFile(str(path))
-            if mol is None or mol.GetNumAtoms() == 0:
-                raise ChairqmError(f"{name}: cannot read {path.name} as XYZ (first line: atom count, second: comment)")
-            mol = Chem.Mol(mol)
-            try:
-                rdDetermineBonds.DetermineBonds(mol, charge=int(charge))
-            except Exception as exc:
-                raise ChairqmError(f"{name}: cannot assign bonds to {path.name} with charge {charge} "
-                                   f"({str(exc).strip().splitlines()[0]}): check the charge and geometry") from None
-            Chem.SanitizeMol(mol)
-            Chem.AssignStereochemistryFrom3D(mol)
-        else:
-            raise ChairqmError(f"{name}: unsupported structure file type '{suffix}': use .sdf, .mol or .xyz")
-    except ChairqmError:
-        raise
-    except Exception as exc:
-        raise ChairqmError(f"{name}: cannot read {path.name}: {str(exc).strip().splitlines()[0]}") from None
-    return mol
+    """A structure file (.sdf, .mol, .xyz) read by chairqm.structure_files, which says what it accepts."""
+    from .structure_files import read
+    return read(name, path, charge)
 
 
 # ---------------------------------------------------------------- perception
