@@ -16,8 +16,10 @@ finished run are reported in the result (``RunResult.failed``), never silently d
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
+import signal
 import subprocess
 import sys
 import time
@@ -430,17 +432,17 @@ def run(config, out=None, cores: int = 2, until: str | None = None, profile: str
     env.setdefault("OPENBLAS_NUM_THREADS", "1")
     env.setdefault("MKL_NUM_THREADS", "1")
     log_path = out / SNAKEMAKE_LOG
+    watcher = None
     try:
-        if show:
-            returncode = subprocess.run(cmd, env=env).returncode
-        else:
-            log_path.parent.mkdir(parents=True, exist_ok=True)
-            watcher = Progress(out, plan, cfg["settings"], until, start, emit) if emit else None
-            if emit:
-                emit(f"chairqm: {len(plan.molecules)} molecule(s) into {out} on {cores} core(s); "
-                     f"Snakemake's log: {log_path} (--verbose shows it here)")
-            with open(log_path, "w") as log:
-                proc = subprocess.Popen(cmd, env=env, stdout=log, stderr=subprocess.STDOUT)
+        with _signals_as_interrupts():
+            if not show:
+                log_path.parent.mkdir(parents=True, exist_ok=True)
+                watcher = Progress(out, plan, cfg["settings"], until, start, emit) if emit else None
+                if emit:
+                    emit(f"chairqm: {len(plan.molecules)} molecule(s) into {out} on {cores} core(s); "
+                         f"Snakemake's log: {log_path} (--verbose shows it here)")
+            with (open(log_path, "w") if not show else _no_file()) as log:
+                proc = subprocess.Popen(cmd, env=env, stdout=log, stderr=subprocess.STDOUT if log else None)
                 try:
                     while True:
                         try:
@@ -449,17 +451,16 @@ def run(config, out=None, cores: int = 2, until: str | None = None, profile: str
                         except subprocess.TimeoutExpired:
                             if watcher:
                                 watcher.poll()
-                except BaseException:
-                    proc.terminate()
-                    try:
-                        proc.wait(timeout=30)
-                    except subprocess.TimeoutExpired:
-                        proc.kill()
+                except BaseException as exc:
+                    signum = exc.signum if isinstance(exc, Interrupted) else signal.SIGINT
+                    _stop_workflow(proc, out)
+                    if isinstance(exc, (Interrupted, KeyboardInterrupt)):
+                        raise Interrupted(signum, out) from None
                     raise
-            if watcher:
-                watcher.poll()
-                if not watcher.seen and not watcher.failed_seen and returncode == 0:
-                    emit("  nothing to redo: every stage is up to date")
+        if watcher:
+            watcher.poll()
+            if not watcher.seen and not watcher.failed_seen and returncode == 0:
+                emit("  nothing to redo: every stage is up to date")
     finally:
         if lock is not None:
             lock.close()
@@ -469,6 +470,118 @@ def run(config, out=None, cores: int = 2, until: str | None = None, profile: str
             msg += ":\n" + _log_tail(log_path)
         raise WorkflowError(msg, returncode, out)
     return RunResult(out, until=until, returncode=0, molecules=plan.names())
+
+
+class Interrupted(BaseException):
+    """The run was stopped by a signal (SIGTERM, SIGINT, SIGHUP): every process of the workflow has been
+    stopped and the partial files of their interrupted writes removed; the same command resumes."""
+
+    def __init__(self, signum: int, out: Path | None = None):
+        self.signum = int(signum)
+        self.out = out
+        name = signal.Signals(self.signum).name
+        super().__init__(f"stopped by {name}" + (f"; rerun the same command to resume in {out}" if out else ""))
+
+
+#: Seconds the workflow's processes get to stop after SIGTERM before they are killed.
+STOP_GRACE_S = 20.0
+
+
+@contextlib.contextmanager
+def _signals_as_interrupts():
+    """SIGTERM (what a batch scheduler sends before SIGKILL at a time limit) and SIGHUP raise
+    Interrupted in the main thread while the workflow runs, as SIGINT raises KeyboardInterrupt, so the
+    workflow is stopped in an orderly way instead of this process vanishing and leaving Snakemake running."""
+    import threading
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def handler(signum, frame):
+        raise Interrupted(signum)
+    old = {}
+    for sig in (signal.SIGTERM, signal.SIGHUP):
+        try:
+            old[sig] = signal.signal(sig, handler)
+        except (OSError, ValueError):
+            pass
+    try:
+        yield
+    finally:
+        for sig, h in old.items():
+            signal.signal(sig, h)
+
+
+@contextlib.contextmanager
+def _no_file():
+    yield None
+
+
+def _stop_workflow(proc, out: Path) -> None:
+    """Stop Snakemake and everything it started (job shells, stage processes, their workers): SIGTERM to
+    each, SIGKILL to what is left after STOP_GRACE_S; then remove the temporary files of writes they were
+    in the middle of (`.NAME.XXXX.part`; no process of the run is left to finish them). Further signals
+    are ignored meanwhile, so a second Ctrl-C cannot leave the run half stopped."""
+    import psutil
+    ignored = {}
+    for sig in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
+        try:
+            ignored[sig] = signal.signal(sig, signal.SIG_IGN)
+        except (OSError, ValueError):
+            pass
+    try:
+        try:
+            procs = [psutil.Process(proc.pid)] + psutil.Process(proc.pid).children(recursive=True)
+        except psutil.Error:
+            procs = []
+        for p in procs:
+            try:
+                p.send_signal(signal.SIGTERM)
+            except psutil.Error:
+                pass
+        alive = _wait_gone(procs, proc, STOP_GRACE_S)
+        # processes started meanwhile (a job launched just before the signal) and the stragglers
+        try:
+            alive += [c for c in psutil.Process(proc.pid).children(recursive=True) if c not in alive]
+        except psutil.Error:
+            pass
+        for p in alive:
+            try:
+                p.kill()
+            except psutil.Error:
+                pass
+        _wait_gone(alive, proc, 5)
+        try:
+            proc.wait(timeout=5)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+        from .stages.__main__ import remove_partial_files
+        for folder in [out] + [p for p in out.iterdir() if p.is_dir() and p.name != ".snakemake"]:
+            remove_partial_files(folder, recursive=folder != out)
+    finally:
+        for sig, h in ignored.items():
+            signal.signal(sig, h)
+
+
+def _wait_gone(procs, child, timeout: float) -> list:
+    """Wait until every process in `procs` has ended; the ones still running after `timeout` s. A zombie
+    counts as ended: in a container whose first process does not reap orphans, a job whose parent died
+    first stays a zombie for good. Our own child (`child`, Snakemake) is reaped here."""
+    import psutil
+    deadline = time.time() + timeout
+    while True:
+        child.poll()
+        alive = []
+        for p in procs:
+            try:
+                if p.is_running() and p.status() != psutil.STATUS_ZOMBIE:
+                    alive.append(p)
+            except psutil.Error:
+                pass
+        if not alive or time.time() >= deadline:
+            return alive
+        time.sleep(0.05)
 
 
 def _failed_job_logs(out: Path, log_path: Path | None) -> list[Path]:

@@ -304,6 +304,9 @@ def main(argv=None) -> int:
         for line in str(exc).splitlines():
             print(f"chairqm: error: {line}", file=sys.stderr)
         return EXIT_INPUT
+    except api.Interrupted as exc:
+        print(f"chairqm: {exc}", file=sys.stderr)
+        return 128 + exc.signum
     except KeyboardInterrupt:
         return 130
     return 0

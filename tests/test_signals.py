@@ -1,0 +1,134 @@
+"""Scheduler signals: SIGTERM (what SLURM sends to every process of a job before SIGKILL at its time limit,
+and what `kill PID` sends) and SIGINT (Ctrl-C in a terminal, sent to the whole foreground process group)
+stop `chairqm run` within seconds, leave no partial file and no lock behind, and the rerun of the same
+command resumes to contract files identical to an uninterrupted run. Tested the way the SIGKILL test in
+test_reliability.py is: the same configuration, kill points, readability checks and comparison.
+"""
+
+from __future__ import annotations
+
+import fcntl
+import glob
+import os
+import signal
+import subprocess
+import time
+from pathlib import Path
+
+import pytest
+
+from test_reliability import (KILL_POINTS, MCH, NO_TWIST_BOATS, _alive, _check_readable, _records,  # noqa: E402
+                              _temporaries, assert_same_results, chairqm_run, clean_env, observe, run_cmd, tail,
+                              write_config)
+
+#: A stop "within seconds": chairqm gives the workflow's processes api.STOP_GRACE_S (20 s) after SIGTERM
+#: before it kills them; on this machine they stop in 1-3 s. Generous for a loaded 2-core machine.
+STOP_WITHIN_S = 15.0
+
+# (kill point as in the SIGKILL test, the signal, sent to the whole process group or to chairqm alone)
+INTERRUPTS = [
+    (KILL_POINTS[0], signal.SIGTERM, "group"),       # SLURM at a time limit: every process of the job
+    (KILL_POINTS[1], signal.SIGINT, "group"),        # Ctrl-C in a terminal: the foreground process group
+    (KILL_POINTS[2], signal.SIGTERM, "chairqm"),     # `kill PID` or `scancel --signal=TERM` of the command
+]
+
+
+@pytest.fixture(scope="module")
+def setup(tmp_path_factory):
+    root = tmp_path_factory.mktemp("signals")
+    cfg = write_config(root / "mch.yaml", [MCH], NO_TWIST_BOATS)
+    ref = root / "reference"
+    proc = chairqm_run(cfg, ref)
+    assert proc.returncode == 0, tail(proc.stderr)
+    return root, cfg, ref
+
+
+def _interrupt_at(cmd, out: Path, pattern: str, signum, target: str, log: Path, timeout=600):
+    """Start `cmd` in its own process group; when `pattern` exists send `signum` to the group or to the
+    chairqm process alone; return (exit code, seconds from the signal to the end of the command)."""
+    with open(log, "a") as fh:
+        p = subprocess.Popen(cmd, stdout=fh, stderr=subprocess.STDOUT, env=clean_env(), start_new_session=True)
+    t0 = time.time()
+    try:
+        while not glob.glob(str(out / pattern)):
+            if p.poll() is not None:
+                raise AssertionError(f"the run ended (exit {p.returncode}) before '{pattern}' appeared; "
+                                     f"log: {tail(log.read_text(), 1500)}")
+            if time.time() - t0 > timeout:
+                raise AssertionError(f"'{pattern}' did not appear within {timeout} s")
+            time.sleep(0.005)
+        sent = time.time()
+        if target == "group":
+            os.killpg(p.pid, signum)
+        else:
+            os.kill(p.pid, signum)
+        try:
+            code = p.wait(timeout=120)
+        except subprocess.TimeoutExpired:
+            code = None
+        return code, time.time() - sent
+    finally:
+        if p.poll() is None:
+            os.killpg(p.pid, signal.SIGKILL)
+            p.wait()
+
+
+def _run_lock_is_free(out: Path) -> bool:
+    with open(out / ".chairqm" / "run.lock", "a") as fh:
+        try:
+            fcntl.flock(fh, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            return False
+        fcntl.flock(fh, fcntl.LOCK_UN)
+        return True
+
+
+@pytest.mark.slow
+def test_sigterm_and_sigint_stop_the_run_and_the_rerun_resumes(setup, tmp_path):
+    root, cfg, reference = setup
+    out = tmp_path / "signalled"
+    cmd = run_cmd(cfg, out)
+    log = tmp_path / "signalled.log"
+    kept: dict[str, tuple] = {}
+    seen = []
+    for (what, pattern, not_yet), signum, target in INTERRUPTS:
+        code, seconds = _interrupt_at(cmd, out, pattern, signum, target, log)
+        name = signal.Signals(signum).name
+        assert code is not None, f"{name} to the {target}: the command did not end within 120 s"
+        assert code == 128 + signum, f"{name} to the {target}: exit {code}; log: {tail(log.read_text(), 1500)}"
+        assert seconds < STOP_WITHIN_S, f"{name} to the {target}: {seconds:.1f} s to stop"
+        time.sleep(0.2)
+        assert not _alive(str(cfg)), f"processes survived {name} to the {target}: {_alive(str(cfg))}"
+        assert not (out / not_yet).exists(), f"interrupt point '{what}' missed: {not_yet} already written"
+        assert not _temporaries(out), f"partial files left by {name}: {_temporaries(out)}"
+        assert not list((out / ".snakemake" / "locks").glob("*")), "a Snakemake lock survived"
+        assert _run_lock_is_free(out), "chairqm's run lock is still held"
+        assert f"stopped by {name}" in log.read_text()
+        n_files = _check_readable(out)
+        recs = _records(out)
+        for path, stat in kept.items():
+            assert recs.get(path) == stat, f"finished record rewritten after {name}: {path}"
+        kept.update(recs)
+        seen.append({"point": what, "signal": name, "to": target, "stopped_after_s": round(seconds, 2),
+                     "exit": code, "files_checked": n_files, "records_kept": len(recs)})
+    final = chairqm_run(cfg, out)
+    assert "LockException" not in final.stderr
+    assert final.returncode == 0, tail(final.stderr)
+    assert not _temporaries(out)
+    recs = _records(out)
+    for path, stat in kept.items():
+        assert recs.get(path) == stat, f"a record finished before a signal was recomputed: {path}"
+    n = assert_same_results(reference, out, ["mch"], resumed=True)
+    observe("signals", {"interrupts": seen, "records_never_rewritten": len(kept), "files_compared": n})
+
+
+@pytest.mark.slow
+def test_sigterm_during_a_verbose_run_stops_it_too(setup, tmp_path):
+    """--verbose shows Snakemake's output in the terminal instead of a log; the stop is the same."""
+    root, cfg, _ = setup
+    out = tmp_path / "verbose"
+    code, seconds = _interrupt_at(run_cmd(cfg, out, "--verbose"), out, "mch/work/opt/*.json", signal.SIGTERM,
+                                  "chairqm", tmp_path / "verbose.log")
+    assert code == 128 + signal.SIGTERM and seconds < STOP_WITHIN_S
+    time.sleep(0.2)
+    assert not _alive(str(cfg)) and not _temporaries(out) and _run_lock_is_free(out)
