@@ -465,6 +465,9 @@ def run(config, out=None, cores: int = 2, until: str | None = None, profile: str
         if lock is not None:
             lock.close()
     if returncode != 0:
+        full = _disk_full_note(out, plan, log_path if not show else None)
+        if full:
+            raise WorkflowError(full, returncode, out)
         msg = f"the workflow stopped with an error (exit {returncode}); " + _where_logs(out, log_path if not show else None)
         if not show:
             msg += ":\n" + _log_tail(log_path)
@@ -582,6 +585,62 @@ def _wait_gone(procs, child, timeout: float) -> list:
         if not alive or time.time() >= deadline:
             return alive
         time.sleep(0.05)
+
+
+#: Disk space a run takes, estimated per molecule of N atoms: the cached Hessian displacements (6N+1 files,
+#: one 4 KiB block each) of HESSIANS_PER_MOLECULE conformers, their records and geometries, and the
+#: molecule's tables; plus the run's own files. Measured on methylcyclohexane (21 atoms, 2 chairs): 1.9 MB
+#: on disk in all, of which 1.0 MB Hessian displacements; the estimate gives 3.7 MB.
+HESSIANS_PER_MOLECULE = 4
+DISK_PER_CONFORMER = 64 * 1024
+DISK_PER_MOLECULE = 256 * 1024
+DISK_PER_RUN = 1024 * 1024
+
+
+def disk_estimate(plan) -> int:
+    """Bytes a run of `plan` takes in its output folder, roughly (see HESSIANS_PER_MOLECULE)."""
+    total = DISK_PER_RUN
+    for m in plan.molecules:
+        n = m.mol.GetNumAtoms()
+        total += DISK_PER_MOLECULE + HESSIANS_PER_MOLECULE * (4096 * (6 * n + 1) + DISK_PER_CONFORMER)
+    return total
+
+
+def _size_on_disk(folder: Path) -> int:
+    total = 0
+    for p in folder.rglob("*"):
+        try:
+            total += p.lstat().st_blocks * 512
+        except OSError:
+            pass
+    return total
+
+
+def _mb(n: float) -> str:
+    return f"{n / 1e6:.1f} MB"
+
+
+def _disk_full_note(out: Path, plan, log_path: Path | None) -> str:
+    """The message for a run stopped by a full disk ('' when the disk is not the cause): the folder, the
+    space free, written so far and needed in all."""
+    import shutil
+    try:
+        free = shutil.disk_usage(out).free
+    except OSError:
+        return ""
+    texts = []
+    for p in ([log_path] if log_path is not None else []) + _failed_job_logs(out, log_path):
+        try:
+            texts.append(p.read_text(errors="replace").lower())
+        except OSError:
+            pass
+    said = any(w in t for t in texts for w in ("no space left on", "disk quota exceeded"))
+    if not said and free >= 1024 * 1024:
+        return ""
+    need, used = disk_estimate(plan), _size_on_disk(out)
+    return (f"no space left in {out}: {_mb(free)} free on its disk, {_mb(used)} written so far; this run needs "
+            f"about {_mb(need)} in all (an estimate), so free at least {_mb(max(need - used, 0))} more there, or "
+            f"choose another --out; then rerun the same command: it resumes from the records already written")
 
 
 def _failed_job_logs(out: Path, log_path: Path | None) -> list[Path]:

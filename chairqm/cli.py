@@ -6,7 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from . import __version__, api
+from . import __version__, api, fileio
 from . import config as cq_config
 from .errors import ChairqmError
 
@@ -304,6 +304,9 @@ def main(argv=None) -> int:
         for line in str(exc).splitlines():
             print(f"chairqm: error: {line}", file=sys.stderr)
         return EXIT_INPUT
+    except fileio.DiskFull as exc:
+        print(f"chairqm: error: {exc}: free space there or choose another --out", file=sys.stderr)
+        return 1
     except api.Interrupted as exc:
         print(f"chairqm: {exc}", file=sys.stderr)
         return 128 + exc.signum

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import errno
 import json
 import os
 import tempfile
@@ -9,6 +10,31 @@ from pathlib import Path
 
 _UMASK = os.umask(0)
 os.umask(_UMASK)
+
+
+#: errno values of a full disk or an exhausted quota
+DISK_FULL_ERRNOS = (errno.ENOSPC, errno.EDQUOT)
+
+
+class DiskFull(BaseException):
+    """A write failed because the disk holding it (or the user's quota) is full.
+
+    Deliberately not an Exception: the catch-alls that turn an engine error into one conformer's failure
+    must not turn a full disk into a failed conformer, which a finished job would then keep. It stops the
+    stage's job instead (Snakemake removes the job's outputs), and `chairqm run` says how much space is
+    needed; the rerun resumes from the records written before."""
+
+    def __init__(self, path: str, detail: str = ""):
+        super().__init__(path, detail)
+        self.path = str(path)
+        self.detail = detail
+
+    def __str__(self) -> str:
+        return f"no space left on the device writing {self.path}" + (f" ({self.detail})" if self.detail else "")
+
+
+def is_disk_full(exc: BaseException) -> bool:
+    return isinstance(exc, DiskFull) or (isinstance(exc, OSError) and exc.errno in DISK_FULL_ERRNOS)
 
 
 def write_text(path, text: str, fsync: bool = True) -> None:
@@ -20,7 +46,12 @@ def write_bytes(path, data: bytes, fsync: bool = True) -> None:
     and is recomputed, while an interrupted process can never leave a half-written one."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    except OSError as exc:
+        if exc.errno in DISK_FULL_ERRNOS:
+            raise DiskFull(str(path), exc.strerror or "") from exc
+        raise
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
@@ -29,11 +60,13 @@ def write_bytes(path, data: bytes, fsync: bool = True) -> None:
                 os.fsync(fh.fileno())
         os.chmod(tmp, 0o666 & ~_UMASK)      # mkstemp makes 0600; results are ordinary files
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as exc:
         try:
             os.unlink(tmp)
         except FileNotFoundError:
             pass
+        if isinstance(exc, OSError) and exc.errno in DISK_FULL_ERRNOS:
+            raise DiskFull(str(path), exc.strerror or "") from exc
         raise
 
 

@@ -23,6 +23,10 @@ from . import FAILURE_RECORD, get, index, names
 from .faults import fault
 
 
+#: exit code of a stage job stopped by a full disk (the errno of ENOSPC)
+DISK_FULL_EXIT = 28
+
+
 def context(config_path):
     """(validated configuration, plan) of a run; raises ChairqmError when either has a problem."""
     from .. import config as cq_config
@@ -101,6 +105,8 @@ def main(argv=None) -> int:
         except ChairqmError:
             raise
         except Exception as exc:
+            if fileio.is_disk_full(exc):
+                raise fileio.DiskFull(getattr(exc, "filename", None) or "?", exc.strerror or "") from exc
             if not (stage.per_molecule and stage.isolated):
                 raise
             import traceback
@@ -109,6 +115,16 @@ def main(argv=None) -> int:
     except ChairqmError as exc:
         print(f"chairqm: {exc}", file=sys.stderr)
         return 2
+    except (fileio.DiskFull, OSError) as exc:
+        if not fileio.is_disk_full(exc):
+            raise
+        # not a failure of this molecule: the job stops, Snakemake removes its outputs, nothing is recorded
+        # as failed, and a rerun once space is freed computes it (the log may be on the full disk too)
+        try:
+            print(f"chairqm: {exc}", file=sys.stderr)
+        except OSError:
+            pass
+        return DISK_FULL_EXIT
     return 0
 
 
