@@ -99,7 +99,7 @@ def _as_substituents(substituents) -> list[RingSubstituent]:
         sid, ra, frag = _get(s, "id"), _get(s, "ring_atom"), _get(s, "fragment")
         if sid is None or ra is None or frag is None:
             raise ChairqmError(f"substituent {s!r} needs an id, a ring_atom and a fragment")
-        out.append(RingSubstituent(str(sid), int(ra), avalues.canonical_fragment(frag),
+        out.append(RingSubstituent(str(sid), int(ra), frag if is_fusion(s) else avalues.canonical_fragment(frag),
                                    int(_get(s, "charge", 0) or 0)))
     ids = [s.id for s in out]
     if len(set(ids)) != len(ids):
@@ -150,6 +150,8 @@ def needs_reference(substituents) -> list[str]:
     """
     out = []
     for s in substituents:
+        if is_fusion(s):
+            continue
         frag = avalues.canonical_fragment(s if isinstance(s, str) else _get(s, "fragment"))
         charge = 0 if isinstance(s, str) else int(_get(s, "charge", 0) or 0)
         if frag == "[*][H]" or charge != 0 or _fragment_charge(frag) != 0:
@@ -160,6 +162,13 @@ def needs_reference(substituents) -> list[str]:
 
 
 # ------------------------------------------------------------------------------ the model's limits
+
+def is_fusion(s) -> bool:
+    """True for a bond into a ring fused to the analysed ring (chairqm.molecule.Substituent.fused, or a
+    fragment with two attachment points): a ring fusion has no A-value."""
+    frag = s if isinstance(s, str) else _get(s, "fragment", "")
+    return bool(not isinstance(s, str) and _get(s, "fused", "")) or str(frag).count("*") > 1
+
 
 def _ring_positions(ring_atoms, ring_elements):
     ring_atoms = [int(a) for a in ring_atoms]
@@ -210,6 +219,12 @@ def outside_reasons(ring_atoms, ring_elements, substituents, qm_a_values=None) -
             where = "bonded to" if dist == 1 else "in the syn-axial (1,3) position of"
             reasons.append(f"ring {e} atom {a} is {where} the substituted ring atom {atom} "
                            f"({', '.join(ids)}): cyclohexane A-values do not apply there")
+    fusions = [s for s in subs if is_fusion(s)]
+    if fusions:
+        reasons.append(f"{' and '.join(s.id for s in fusions)} {'is' if len(fusions) == 1 else 'are'} the "
+                       "bond(s) into a fused ring: a fused ring system flips (or is locked) as a whole, which "
+                       "cyclohexane A-values do not describe")
+    subs = [s for s in subs if not is_fusion(s)]
     for s in subs:
         if _is_charged(s):
             reasons.append(f"{s.id} ({s.fragment}) is a charged group: its conformational energy depends on "

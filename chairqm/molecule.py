@@ -33,6 +33,14 @@ class Substituent:
     atoms: list[int]            # every atom of the group, hydrogens included
     fragment: str               # canonical fragment SMILES with attachment point, e.g. [*]C
     charge: int = 0             # formal charge of the group
+    # for a bond to a ring fused to the analysed one (decalins, hydrindanes): that ring's label in
+    # Perceived.other_rings ('r2'); its two fusion bonds are two substituents sharing `atoms`, and
+    # `fragment` is the fused part with two attachment points ('[*]CCCC[*]'), which has no A-value
+    fused: str = ""
+
+
+#: sizes of a ring fused (sharing one bond) to the analysed ring that chairqm seeds and measures
+FUSED_RING_SIZES = (5, 6)
 
 
 @dataclass
@@ -314,7 +322,9 @@ def perceive(entry: dict, base_dir: Path | str = ".", settings: dict | None = No
     rings = saturated_six_rings(mol)
     if not rings:
         six = [r for r in mol.GetRingInfo().AtomRings() if len(r) == 6]
-        why = ("; ".join(_ring_problem(mol, r) for r in six) if six else "it has no six-membered ring")
+        why = ("; ".join(_ring_problem(mol, r) for r in six) if six else
+               "its rings form a bridged system (as in norbornane), whose six-membered cycles chairqm does not "
+               "analyse" if _bridged(mol) else "it has no six-membered ring")
         raise ChairqmError(f"{name}: no six-membered ring chairqm can analyse (single ring bonds, ring atoms "
                            f"{', '.join(sorted(RING_ELEMENTS))}, none aromatic): {why}")
     out = []
@@ -338,18 +348,43 @@ def _describe(mol, name, rings, charge, multiplicity, source, raw, entry) -> Per
             if is_trigonal_exocyclic(mol, ra, j):
                 continue                 # C=O, C=CH2: in the ring atom's plane, no axial/equatorial
             group = _group_atoms(mol, ring_set, ra, j)
+            fused_to = None
             if group is None:
-                raise ChairqmError(f"{name}: the analysed ring {ring} is {_system_kind(mol, ring)}, which chairqm "
-                                   "does not analyse yet: give a molecule "
-                                   "whose analysed ring shares no atom with another ring")
-            frag = _fragment(mol, ra, j, group)
+                fused_to = _fused_ring(mol, ring, ra, j)
+                if fused_to is None:
+                    raise ChairqmError(f"{name}: the analysed ring {ring} is {_system_kind(mol, ring)}, which "
+                                       "chairqm does not analyse: an analysed ring may share one bond with "
+                                       "a saturated five- or six-membered ring (as in the decalins and "
+                                       "hydrindanes) and nothing else; name another ring with 'ring:' where "
+                                       "the molecule has one")
+                group = _component(mol, ring_set, j)
+                frag = _fused_fragment(mol, ring, group)
+            else:
+                frag = _fragment(mol, ra, j, group)
             gcharge = sum(mol.GetAtomWithIdx(k).GetFormalCharge() for k in group)
             subs.append(Substituent(id=f"s{len(subs) + 1}", ring_atom=ra, first_atom=j, atoms=group,
-                                    fragment=frag, charge=gcharge))
+                                    fragment=frag, charge=gcharge,
+                                    fused="" if fused_to is None else ",".join(map(str, fused_to))))
     notes = []
     if len(rings) > 1:
         notes.append(f"{len(rings)} saturated six-membered rings; analysing ring {ring}")
-    others = _other_rings(mol, ring, rings)
+    fused = []
+    for s_ in subs:
+        if s_.fused and s_.fused not in fused:
+            fused.append(s_.fused)
+    fused_rings = [[int(i) for i in f.split(",")] for f in fused]
+    others = _other_rings(mol, ring, rings, fused_rings)
+    for s_ in subs:
+        if s_.fused:
+            atoms = {int(i) for i in s_.fused.split(",")}
+            s_.fused = next(o["label"] for o in others if set(o["atoms"]) == atoms)
+    for o in others:
+        if o.get("fused"):
+            kind = _fusion_kind(mol, ring, o)
+            o["fusion"] = kind
+            notes.append(f"ring {o['label']} ({len(o['atoms'])} atoms) is {kind}-fused to the analysed ring"
+                         + (": the pair cannot ring-flip (locked)" if kind == "trans" else
+                            ": both rings flip together" if kind == "cis" else ""))
     return Perceived(
         name=name,
         smiles=Chem.MolToSmiles(Chem.RemoveHs(mol)),
@@ -368,6 +403,18 @@ def _describe(mol, name, rings, charge, multiplicity, source, raw, entry) -> Per
     )
 
 
+def _bridged(mol) -> bool:
+    """True when two rings of the smallest set share more than one bond's worth of atoms, or two atoms
+    that are not bonded: a bridged ring system."""
+    rings = [set(r) for r in mol.GetRingInfo().AtomRings()]
+    for i, a in enumerate(rings):
+        for b in rings[i + 1:]:
+            shared = a & b
+            if len(shared) > 2 or (len(shared) == 2 and mol.GetBondBetweenAtoms(*sorted(shared)) is None):
+                return True
+    return False
+
+
 def _system_kind(mol, ring) -> str:
     """'spiro-joined', 'fused' or 'bridged' to another ring, from the atoms it shares with it (SSSR)."""
     kinds = []
@@ -378,18 +425,120 @@ def _system_kind(mol, ring) -> str:
         if len(shared) == 1:
             kinds.append("spiro-joined to another ring (a shared atom)")
         elif len(shared) == 2 and mol.GetBondBetweenAtoms(*sorted(shared)) is not None:
-            kinds.append("fused to another ring (a shared bond, as in the decalins, whose ring flip moves both "
-                         "rings at once)")
+            if len(other) in FUSED_RING_SIZES and not any(mol.GetAtomWithIdx(i).GetIsAromatic() for i in other):
+                continue                 # a supported fusion (decalin, hydrindane): not the reason
+            kinds.append(f"fused to a {len(other)}-membered{' aromatic' if any(mol.GetAtomWithIdx(i).GetIsAromatic() for i in other) else ''} "
+                         "ring (fused saturated five- and six-membered rings are supported)")
         else:
             kinds.append("part of a bridged ring system")
     return kinds[0] if kinds else "part of a fused, bridged or spiro ring system"
 
 
-def _other_rings(mol, ring, rings) -> list[dict]:
-    """The analysable six-membered rings other than the analysed one, then the saturated four-membered
-    rings (cyclobutyl, oxetanyl, azetidinyl), each with the bond that leads from it towards the analysed
-    ring (shortest path through the molecular graph)."""
+def in_rigid_ring_system(mol, r, ring) -> bool:
+    """True when ring `r` of a group shares two or more atoms with another ring of the molecule (not the
+    analysed `ring`): a bridged or fused polycycle, such as the cages bicyclo[1.1.1]pentyl, norbornyl,
+    adamantyl, cubyl and bicyclo[2.2.2]octyl. Such a ring is not seeded in chair or pucker states
+    (chairqm.other_rings restrains each ring's torsions on its own, which would bend a cage, whose rings
+    cannot flip, and would set the rings of a fused polycycle independently of each other): it is left
+    rigid, as the embedding built it, and its state is not labelled."""
+    for other in mol.GetRingInfo().AtomRings():
+        if set(other) != set(r) and set(other) != set(ring) and len(set(other) & set(r)) >= 2:
+            return True
+    return False
+
+
+def _component(mol, ring_set, first) -> list[int]:
+    """Every atom reachable from `first` without entering the analysed ring (hydrogens included)."""
+    seen = {first}
+    stack = [first]
+    while stack:
+        i = stack.pop()
+        for nb in mol.GetAtomWithIdx(i).GetNeighbors():
+            j = nb.GetIdx()
+            if j not in ring_set and j not in seen:
+                seen.add(j)
+                stack.append(j)
+    return sorted(seen)
+
+
+def _fused_ring(mol, ring, ring_atom, first):
+    """The ring fused to the analysed one through the bond at `ring_atom` that `first` starts, in ring
+    order, or None when the analysed ring is not simply fused there: the part reached through `first`
+    must touch the analysed ring at exactly two bonded atoms, and a saturated ring of FUSED_RING_SIZES
+    atoms must run through `first` and share exactly that bond with the analysed ring."""
+    ring_set = set(ring)
+    comp = _component(mol, ring_set, first)
+    touching = {nb.GetIdx() for i in comp for nb in mol.GetAtomWithIdx(i).GetNeighbors() if nb.GetIdx() in ring_set}
+    if len(touching) != 2 or ring_atom not in touching or mol.GetBondBetweenAtoms(*sorted(touching)) is None:
+        return None
+    for r in mol.GetRingInfo().AtomRings():
+        if len(r) in FUSED_RING_SIZES and first in r and set(r) & ring_set == touching:
+            if any(mol.GetAtomWithIdx(i).GetIsAromatic() for i in r):
+                return None
+            return _order_ring(mol, list(r))
+    return None
+
+
+def _fused_fragment(mol, ring, atoms) -> str:
+    """The fused part cut at its two bonds to the analysed ring, with two attachment points."""
+    ring_set = set(ring)
+    keep = set(atoms)
+    bonds = [b.GetIdx() for b in mol.GetBonds()
+             if (b.GetBeginAtomIdx() in keep) != (b.GetEndAtomIdx() in keep)
+             and (b.GetBeginAtomIdx() in ring_set or b.GetEndAtomIdx() in ring_set)]
+    pieces = Chem.FragmentOnBonds(mol, bonds, addDummies=True, dummyLabels=[(0, 0)] * len(bonds))
+    frags = []
+    groups = Chem.GetMolFrags(pieces, asMols=True, sanitizeFrags=False, frags=frags)
+    group = Chem.RemoveHs(groups[frags[min(keep)]], sanitize=False)
+    for a in group.GetAtoms():
+        a.SetChiralTag(Chem.ChiralType.CHI_UNSPECIFIED)      # the fusion's stereo is the molecule's
+    try:
+        Chem.SanitizeMol(group)
+    except Exception:
+        pass
+    return Chem.MolToSmiles(group).replace("*", "[*]").replace("[[*]]", "[*]")
+
+
+def _fusion_kind(mol, ring, other) -> str:
+    """'cis' or 'trans' for a ring fused to the analysed ring (from one RDKit embedding: the two bonds
+    into the fused ring on the same or opposite faces of the analysed ring), '' when it cannot be told."""
+    from rdkit.Chem import AllChem as _AllChem
+    shared = [a for a in ring if a in set(other["atoms"])]
+    if len(shared) != 2:
+        return ""
+    m = Chem.Mol(mol)
+    if _AllChem.EmbedMolecule(m, randomSeed=7, maxAttempts=20) < 0:
+        return ""
+    import numpy as np
+    x = m.GetConformer().GetPositions()
+    c = x[list(ring)] - x[list(ring)].mean(axis=0)
+    normal = np.linalg.svd(c)[2][-1]
+    ring_set, oset = set(ring), set(other["atoms"])
+    sides = []
+    for a in shared:
+        # the fusion atom's other exocyclic neighbour (H or group), not the fused-ring bond, decides the face
+        exo = [nb.GetIdx() for nb in m.GetAtomWithIdx(a).GetNeighbors()
+               if nb.GetIdx() not in ring_set and nb.GetIdx() not in oset]
+        if len(exo) != 1:
+            return ""
+        sides.append(float((x[exo[0]] - x[a]) @ normal))
+    return "cis" if sides[0] * sides[1] > 0 else "trans"
+
+
+def _other_rings(mol, ring, rings, fused=()) -> list[dict]:
+    """The rings fused to the analysed one (`fused`, in ring order; 'fused': True), the analysable
+    six-membered rings other than the analysed one, then the saturated four-membered rings (cyclobutyl,
+    oxetanyl, azetidinyl), each with the bond that leads from it towards the analysed ring (shortest path
+    through the molecular graph; for a fused ring, the first shared atom's bond to its analysed-ring
+    neighbour outside the fused ring)."""
     out = []
+    for r in fused:
+        shared = [a for a in ring if a in set(r)]
+        a = shared[0]
+        k = ring.index(a)
+        nbr = ring[k - 1] if ring[k - 1] not in set(r) else ring[(k + 1) % 6]
+        out.append({"label": f"r{len(out) + 2}", "atoms": list(r), "link_atom": int(a), "link_to": int(nbr),
+                    "fused": True})
     small = sorted(_order_ring(mol, list(r)) for r in mol.GetRingInfo().AtomRings()
                    if len(r) == 4 and not any(mol.GetAtomWithIdx(i).GetIsAromatic() for i in r)
                    and all(mol.GetBondBetweenAtoms(r[k], r[(k + 1) % 4]).GetBondType() == Chem.BondType.SINGLE

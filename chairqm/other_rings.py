@@ -3,7 +3,9 @@
 A six-membered ring inside a substituent (morpholino, piperidino, cyclohexyl) is seeded in both chairs
 and, in each, with its link to the analysed ring equatorial and axial (a ring N inverts, so the chair
 alone does not decide where the link sits); a four-membered one (cyclobutyl, oxetanyl, azetidinyl) in
-both puckers. chairqm.seeds adds each restraint set to the analysed ring's own.
+both puckers. A ring fused to the analysed ring is not restrained: the analysed ring's form decides its
+chair (or envelope), which the embedding and the force field find. chairqm.seeds adds each restraint set
+to the analysed ring's own.
 
 A restraint set is a list of items: (ring atoms, target torsions) restrains every ring torsion within
 chairqm.seeds.RING_TORSION_TOL of its target; ("torsion", (i, j, k, l), low, high) one torsion to a range.
@@ -38,6 +40,11 @@ def restraint_sets(mol, others, chairs, max_sets: int) -> list:
             # pseudo-axial in the other)
             per_ring.append([[(r0, np.array([sg * FOUR_RING_TORSION * (-1) ** j for j in range(4)]))]
                              for sg in (1.0, -1.0)])
+            continue
+        if o.get("fused"):
+            # a fused ring shares a ring torsion with the analysed ring, so the analysed ring's template
+            # decides its chair: it is left to the embedding and the force field (restraining it to the
+            # other chair only tears the shared bond's torsion apart); its twist forms are not seeded
             continue
         k = r0.index(int(o["link_atom"]))
         r = r0[k:] + r0[:k]                          # the link atom first: torsion 5 is F-A-B-C

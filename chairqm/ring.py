@@ -68,11 +68,12 @@ class Pucker:
 def mean_plane(coords) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Centroid, unit normal n and out-of-plane displacements z_j of a ring (Cremer & Pople 1975)."""
     x = np.asarray(coords, dtype=float)
-    if x.shape != (6, 3):
-        raise ValueError(f"need a (6, 3) array of ring coordinates, got shape {x.shape}")
+    if x.ndim != 2 or x.shape[1] != 3 or not 4 <= x.shape[0] <= 8:
+        raise ValueError(f"need an (N, 3) array of ring coordinates (N = 4 to 8), got shape {x.shape}")
     c = x.mean(axis=0)
     r = x - c
-    ang = 2.0 * np.pi * np.arange(6) / 6.0
+    n_at = x.shape[0]
+    ang = 2.0 * np.pi * np.arange(n_at) / n_at
     r1 = (r * np.sin(ang)[:, None]).sum(axis=0)
     r2 = (r * np.cos(ang)[:, None]).sum(axis=0)
     n = np.cross(r1, r2)
@@ -85,6 +86,8 @@ def mean_plane(coords) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 def cremer_pople(coords) -> Pucker:
     """Cremer–Pople Q, theta, phi of six ring atoms given in ring order (J. Am. Chem. Soc. 1975, 97, 1354)."""
+    if np.asarray(coords).shape != (6, 3):
+        raise ValueError(f"need a (6, 3) array of ring coordinates, got shape {np.asarray(coords).shape}")
     _, _, z = mean_plane(coords)
     j = np.arange(6)
     a = 4.0 * np.pi * j / 6.0
@@ -256,6 +259,12 @@ def slot_elevations(positions, ring, k: int, normal=None) -> tuple[float, float]
     return e1, e2
 
 
+def trigonal_ring_atoms(mol, ring) -> list[int]:
+    """The ring atoms of an RDKit molecule (explicit H) with three neighbours (an amide or N-aryl ring N,
+    a ring N-H): the ones `measure` may label 'planar'."""
+    return [int(a) for a in ring if mol.GetAtomWithIdx(int(a)).GetDegree() == 3]
+
+
 def _angle_sum(x, ring, k, first_atom) -> float:
     a = x[ring[k]]
     vecs = [x[ring[k - 1]] - a, x[ring[(k + 1) % len(ring)]] - a, x[first_atom] - a]
@@ -266,7 +275,7 @@ def _angle_sum(x, ring, k, first_atom) -> float:
     return total
 
 
-def orientation(positions, ring, ring_atom: int, first_atom: int, form: str) -> str:
+def orientation(positions, ring, ring_atom: int, first_atom: int, form: str, trigonal: bool = False) -> str:
     """Orientation label of the bond ring_atom–first_atom, measured from the geometry.
 
     The bond is assigned to the nearer of the two exocyclic slots at its ring atom (`exocyclic_slots`);
@@ -275,7 +284,8 @@ def orientation(positions, ring, ring_atom: int, first_atom: int, form: str) -> 
       chair:       'axial' if d > 0 else 'equatorial'
       boat:        at the bow and stern atoms (the two atoms farthest from the mean plane) 'flagpole'
                    if d > 0 else 'bowsprit'; at the other four atoms as for a twist-boat
-      any form:    'planar' if the ring atom is trigonal (the sum of its three bond angles, two in the
+      any form:    'planar' if `trigonal` (the ring atom has three neighbours) and it is flat (the sum of
+                   its three bond angles, two in the
                    ring and the one to this bond, at least PLANAR_ANGLE_SUM): the N of an amide, carbamate
                    or N-aryl ring N, whose one exocyclic bond has no axial or equatorial side
       twist-boat, half-chair, envelope, other:
@@ -291,7 +301,7 @@ def orientation(positions, ring, ring_atom: int, first_atom: int, form: str) -> 
     d1, d2 = exocyclic_slots(x, ring, k)
     bond = x[first_atom] - x[ring_atom]
     bond = bond / np.linalg.norm(bond)
-    if _angle_sum(x, ring, k, first_atom) >= PLANAR_ANGLE_SUM:
+    if trigonal and _angle_sum(x, ring, k, first_atom) >= PLANAR_ANGLE_SUM:
         return "planar"
     mine, other = (d1, d2) if bond @ d1 >= bond @ d2 else (d2, d1)
     d = (math.degrees(math.asin(min(1.0, abs(float(mine @ n)))))
@@ -315,16 +325,20 @@ def _sub_key(sid: str):
     return (int(digits) if digits else 10 ** 9, s)
 
 
-def measure(positions, ring, substituents, other_rings=()) -> dict:
+def measure(positions, ring, substituents, other_rings=(), trigonal_atoms=()) -> dict:
     """Ring form, Q, theta, phi and the orientation string ('s1=axial;s2=equatorial') of one structure;
     with `other_rings` (chairqm.molecule.Perceived.other_rings) also 'other_rings': each other ring's form
-    and the position on it of the bond towards the analysed ring ('r2=chair:equatorial'), '' for none."""
+    and the position on it of the bond towards the analysed ring ('r2=chair:equatorial'), '' for none.
+    `trigonal_atoms`: the ring atoms with three neighbours (`trigonal_ring_atoms`), whose one exocyclic
+    bond is labelled 'planar' when the atom is flat."""
     x = np.asarray(positions, dtype=float)
     ring = list(ring)
     p = cremer_pople(x[ring])
     form = classify(p)
     subs = sorted(substituents, key=lambda s: _sub_key(s.id))
-    text = ";".join(f"{s.id}={orientation(x, ring, s.ring_atom, s.first_atom, form)}" for s in subs)
+    tri = {int(a) for a in trigonal_atoms}
+    text = ";".join(f"{s.id}={orientation(x, ring, s.ring_atom, s.first_atom, form, int(s.ring_atom) in tri)}"
+                    for s in subs)
     out = {"ring_form": form, "q": p.q, "theta": p.theta, "phi": p.phi, "orientation": text}
     if other_rings:
         out["other_rings"] = other_ring_states(x, other_rings)
@@ -340,9 +354,29 @@ def other_ring_states(positions, other_rings) -> str:
         if len(o["atoms"]) == 4:
             parts.append(f"{o['label']}={four_ring_state(x, o['atoms'], o['link_atom'], o['link_to'])}")
             continue
+        if len(o["atoms"]) == 5:
+            parts.append(f"{o['label']}={five_ring_form(x[list(o['atoms'])])}")
+            continue
         form = classify(cremer_pople(x[list(o["atoms"])]))
         parts.append(f"{o['label']}={form}:{orientation(x, list(o['atoms']), o['link_atom'], o['link_to'], form)}")
     return ";".join(parts)
+
+
+def five_ring_form(coords) -> str:
+    """'envelope' or 'twist' (or 'planar') of a five-membered ring given in ring order, from its
+    Cremer–Pople phase angle (J. Am. Chem. Soc. 1975, 97, 1354): q2 cos phi2 = sqrt(2/5) sum z_j
+    cos(4 pi j / 5), q2 sin phi2 = -sqrt(2/5) sum z_j sin(4 pi j / 5). Along the pseudorotation path the
+    ten envelopes sit at phi2 = 0, 36, 72, ... deg and the ten twists halfway between; the nearer one
+    names the form. Planar when q2 is below 0.1 Å."""
+    _, _, z = mean_plane(np.asarray(coords, dtype=float))
+    j = np.arange(5)
+    a = 4.0 * np.pi * j / 5.0
+    c = math.sqrt(2.0 / 5.0) * float(np.sum(z * np.cos(a)))
+    s = -math.sqrt(2.0 / 5.0) * float(np.sum(z * np.sin(a)))
+    if math.hypot(c, s) < 0.1:
+        return "planar"
+    phi = math.degrees(math.atan2(s, c)) % 36.0
+    return "envelope" if min(phi, 36.0 - phi) < 9.0 else "twist"
 
 
 #: |ring torsion| (deg) below which a four-membered ring counts as planar. Puckered cyclobutane has ring

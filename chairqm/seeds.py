@@ -80,6 +80,10 @@ MAX_OTHER_RING_SETS = 16    # combinations of the other rings' states seeded per
 # seeded tilted this fraction of the way from the in-plane bisector towards each tetrahedral slot (0.35:
 # about 18 deg, the largest tilt RDKit's embedding accepts for an sp2 N, tried here on N-phenylpiperidine).
 N_ARYL_TILT = 0.35
+# deg: two bonds into a fused five- or six-membered ring on adjacent ring atoms can be gauche (cis- or
+# trans-diequatorial fusion, |torsion| near 60) but not anti (trans-diaxial, near 180); beyond this the
+# template is screened as locked (the ring's own torsion inside the fused ring could not be closed)
+FUSION_MAX_TORSION = 150.0
 SKELETON_TOL = 0.02         # Å, max deviation for two skeletons to be symmetry-equivalent
 # numpy's results can differ in the last bits between processes (memory alignment picks different SIMD
 # paths); coordinates are rounded at each hand-over so that the same input gives the same bytes.
@@ -385,7 +389,7 @@ def _embed(ctx, pos, seed):
 
 
 def _measure_into(ctx, seed: Seed, X, intended_form):
-    meas = ringgeo.measure(X, ctx.ring, ctx.subs, ctx.others)
+    meas = ringgeo.measure(X, ctx.ring, ctx.subs, ctx.others, ringgeo.trigonal_ring_atoms(ctx.mol, ctx.ring))
     seed.ring_form, seed.q, seed.theta, seed.phi = meas["ring_form"], meas["q"], meas["theta"], meas["phi"]
     seed.orientation = meas["orientation"]
     seed.other_rings = meas.get("other_rings", "")
@@ -412,6 +416,60 @@ def _frame(ctx, X, ring_xyz):
     """Put a structure into the template frame: ring atoms superposed on the template ring (proper fit)."""
     T = chem.fit(ring_xyz, X[ctx.ring])
     return np.round(T(X), DECIMALS_OUT) + 0.0
+
+
+def _fusion_pairs(ctx) -> list:
+    """(label, ring atom a, its fused-ring neighbour, ring atom b, its fused-ring neighbour) per fused ring."""
+    by_label = {}
+    for sub in ctx.subs:
+        label = sub.get("fused", "") if isinstance(sub, dict) else getattr(sub, "fused", "")
+        if label:
+            ra = int(sub["ring_atom"] if isinstance(sub, dict) else sub.ring_atom)
+            fa = int(sub["first_atom"] if isinstance(sub, dict) else sub.first_atom)
+            by_label.setdefault(label, []).append((ra, fa))
+    return [(label, *pairs[0], *pairs[1]) for label, pairs in by_label.items() if len(pairs) == 2]
+
+
+def _unspannable_fusion(ctx, pos) -> str:
+    """Why a skeleton cannot be built ('' if it can): the two bonds into a fused ring are anti-periplanar
+    (|torsion| above FUSION_MAX_TORSION), as both fusion bonds of a trans-fused ring are in the other
+    chair, and a five- or six-membered ring cannot span them. This is the ring-flip lock of the
+    trans-decalins and trans-hydrindanes."""
+    for label, a, fa, b, fb in _fusion_pairs(ctx):
+        if not all(i in pos for i in (a, fa, b, fb)):
+            continue
+        tau = chem.dihedral(pos[fa], pos[a], pos[b], pos[fb])
+        if abs(tau) > FUSION_MAX_TORSION:
+            size = len(next((o["atoms"] for o in ctx.others if o["label"] == label), ()))
+            return (f"locked: the bonds into the fused ring {label} would be anti-periplanar here (torsion "
+                    f"{tau:.0f} deg), which a {size}-membered ring cannot span (trans ring fusion: this ring "
+                    "form cannot be reached)")
+    return ""
+
+
+def _fused_chairs(ctx, pos) -> list:
+    """Restraints for each fused six-membered ring: the chair whose torsion about the shared bond has the
+    sign the analysed ring's template gives it (fa–a–b–fb on the skeleton), i.e. the one chair the
+    fusion allows in this form; left unrestrained, the embedding often leaves it a twist-boat."""
+    out = []
+    chairs = [(t.q, t.theta, t.phi) for t in TEMPLATES if t.form == "chair"]
+    for label, a, fa, b, fb in _fusion_pairs(ctx):
+        o = next((o for o in ctx.others if o["label"] == label), None)
+        if o is None or len(o["atoms"]) != 6 or not all(i in pos for i in (a, fa, b, fb)):
+            continue
+        tau = chem.dihedral(pos[fa], pos[a], pos[b], pos[fb])
+        r0 = [int(i) for i in o["atoms"]]
+        k = r0.index(fa)
+        r = r0[k:] + r0[:k]                       # fa first: torsion 0 is fa-a-b-fb when a follows fa
+        if r[1] != a:
+            r = [r[0]] + r[1:][::-1]
+        lengths = [_bond_length(ctx.mol, r[i], r[(i + 1) % 6]) for i in range(6)]
+        for q, theta, phi in chairs:
+            tors = np.round(ringgeo.ring_torsions(ringgeo.ring_from_pucker(q, theta, phi, lengths)), 4)
+            if tors[0] * tau > 0:
+                out.append((r, tors))
+                break
+    return out
 
 
 def _other_ring_chairs(ctx) -> list:
@@ -487,6 +545,11 @@ def build_seeds(mol, ring, substituents, settings=None, other_rings=()) -> list[
             out.append(seed)
             continue
         pos = _skeleton(ctx, X, choice)
+        spanned = _unspannable_fusion(ctx, pos)
+        if spanned:
+            seed.status, seed.reason = "screened", spanned
+            out.append(seed)
+            continue
         S = np.zeros((n_atoms, 3))
         for i, p in pos.items():
             S[i] = p
@@ -512,10 +575,11 @@ def build_seeds(mol, ring, substituents, settings=None, other_rings=()) -> list[
             out.append(seed)
             continue
         targets = np.round(ringgeo.ring_torsions(X), 4)
+        fused_chairs = _fused_chairs(ctx, pos)
         built = False
         for io, extra in enumerate(other_sets if merged_with is None else other_sets[:1]):
             s_io = seed if io == 0 else Seed(name=f"{name}-o{io + 1}", template=tpl.name, forcefield=ctx.forcefield)
-            relax = functools.partial(_relax_into, ctx, targets=[(ctx.ring, targets)] + extra, ring_xyz=X,
+            relax = functools.partial(_relax_into, ctx, targets=[(ctx.ring, targets)] + extra + fused_chairs, ring_xyz=X,
                                       form=tpl.form)
             notes, mismatch = relax(s_io, Xb)
             Xr = s_io.positions

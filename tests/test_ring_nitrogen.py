@@ -77,12 +77,14 @@ def test_orientation_is_planar_at_a_trigonal_ring_atom_only():
     X = ring_from_pucker(0.55, 0.0, 0.0, [1.53] * 6)
     b = (X[0] - X[5]) + (X[0] - X[1])          # in the plane of atoms 5, 0, 1: bond angles sum to 360
     flat = np.vstack([X, X[0] + 1.4 * b / np.linalg.norm(b)])
-    assert orientation(flat, list(range(6)), 0, 6, "chair") == "planar"
-    assert orientation(flat, list(range(6)), 0, 6, "twist-boat") == "planar"
+    assert orientation(flat, list(range(6)), 0, 6, "chair", trigonal=True) == "planar"
+    assert orientation(flat, list(range(6)), 0, 6, "twist-boat", trigonal=True) == "planar"
+    # a ring atom with four neighbours is never 'planar', however distorted
+    assert orientation(flat, list(range(6)), 0, 6, "chair") in ("axial", "equatorial")
     d1, d2 = exocyclic_slots(X, list(range(6)), 0)
     for d in (d1, d2):
         tet = np.vstack([X, X[0] + 1.53 * d])
-        assert orientation(tet, list(range(6)), 0, 6, "chair") in ("axial", "equatorial")
+        assert orientation(tet, list(range(6)), 0, 6, "chair", trigonal=True) in ("axial", "equatorial")
 
 
 # ---- end to end --------------------------------------------------------------------------------------

@@ -160,6 +160,14 @@ def _analyse_temperature(p, plan, name, settings, usable_df, t):
             summ.update(second_chair=summ["preferred_chair"], chair_dg_kcal=0.0, note="; ".join(notes))
             if len(ids) == 1:
                 summ["a_value_kcal"] = 0.0
+    locked = [o for o in p.other_rings if o.get("fusion") == "trans"]
+    if summ.get("chair_dg_kcal") is None and summ.get("preferred_chair") is not None and locked:
+        # a trans-fused ring: the flipped chair would need both fusion bonds axial (anti), which the fused
+        # ring cannot span (the seeds stage screens it as 'locked'); there is no chair equilibrium
+        notes = [n for n in str(summ.get("note", "")).split("; ") if n and "ring-flip partner chair" not in n]
+        notes.append("the ring cannot flip: " + ", ".join(o["label"] for o in locked) + " is trans-fused to it, "
+                     "and the other chair would need both fusion bonds axial (locked), so no chair gap exists")
+        summ["note"] = "; ".join(notes)
     qm = _qm_a_values(plan, name, t)
     own = (len(p.substituents) == 1 and p.ring_elements == ["C"] * 6 and summ.get("a_value_kcal") is not None
            and cq_add.needs_reference(p.substituents))
@@ -179,6 +187,8 @@ def _analyse_temperature(p, plan, name, settings, usable_df, t):
         flag, why = cq_add.disagreement(summ.get("preferred_chair_axial"), summ.get("chair_dg_kcal"), est,
                                         summ.get("twist_boat_population", 0.0), an["flag_threshold_kcal"],
                                         an["non_chair_threshold"])
+    if locked and summ.get("chair_dg_kcal") is None and summ.get("preferred_chair") is not None:
+        flag, why = False, summ["note"].split("; ")[-1]
     if own and not reasons:
         flag, why = False, (f"defines the QM-derived A-value of {p.substituents[0].fragment} "
                             "(used for the additive estimate of the other molecules)")

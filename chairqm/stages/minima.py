@@ -39,7 +39,8 @@ def _optimise_one(job):
             status, reasons = "failed", reasons + [f"bonds changed: {why_b}"]
         if not ok_s:
             status, reasons = "failed", reasons + [f"stereo changed: {why_s}"]
-        rec["measured"] = cq_ring.measure(geom.positions, p.ring, p.substituents, p.other_rings)
+        rec["measured"] = cq_ring.measure(geom.positions, p.ring, p.substituents, p.other_rings,
+                                          cq_ring.trigonal_ring_atoms(p.mol, p.ring))
     else:
         rec["checks"] = {}
         rec["measured"] = None

@@ -34,6 +34,8 @@ def calibrate_rows(rows, settings, cal=False) -> str:
         for quantity in ("a_value_kcal", "chair_dg_kcal"):
             v = r.get(quantity)
             if v is not None and v == v:
+                if quantity == "chair_dg_kcal" and float(v) == 0.0:
+                    break           # two chairs equal by symmetry (set exactly by the ensemble stage): exact
                 c, lo, hi = cq_cal.apply(cal, float(v))
                 r.update({"calibrated_kcal": c, "interval_low_kcal": lo, "interval_high_kcal": hi,
                           "calibrated_quantity": quantity})
@@ -92,7 +94,8 @@ def provenance(cfg, plan, calibration_note) -> dict:
     start_file = Path(".chairqm", "run-start.json")
     started = fileio.read_json(start_file) if start_file.is_file() else {}
     now = time.time()
-    return {"chairqm_version": __version__, "engines": cq_engine.engine_versions(),
+    return {"chairqm_version": __version__, "output_version": tables.OUTPUT_VERSION,
+            "engines": cq_engine.engine_versions(),
             "project": cfg.get("project", ""), "settings": cfg["settings"],
             "config_file": str(cfg.get("_config_path", "")),
             "input_hashes": {m.name: m.input_hash for m in plan.molecules},

@@ -7,6 +7,13 @@ or not any single point succeeded), never on how far a molecule got.
 
 from __future__ import annotations
 
+#: the version of the output contract, written to provenance.json as `output_version`. 1: the first
+#: contract. 2: a molecule may have a fused ring (its two fusion bonds are substituents whose fragment has
+#: two attachment points, '[*]CCCC[*]'; the fused ring is an `other_rings` entry, 'r2=chair:equatorial',
+#: a fused five-membered one 'r2=envelope' or 'r2=twist'); seeds screened as 'locked:'; the orientation
+#: label 'planar' (a flat ring atom's one exocyclic bond). No column was renamed or removed.
+OUTPUT_VERSION = 2
+
 
 def _refined(settings: dict) -> bool:
     return (settings or {}).get("refine") is not None

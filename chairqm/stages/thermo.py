@@ -97,7 +97,8 @@ def _freq_one(job, executor=None):
             status, reason = "failed", "; ".join(x for x in (why_b if not ok_b else "", why_s if not ok_s else "") if x)
         sigma, pg = cq_symmetry.symmetry_number(final)
         rec["symmetry_number"], rec["point_group"] = int(sigma), pg
-        rec["measured"] = cq_ring.measure(final.positions, p.ring, p.substituents, p.other_rings)
+        rec["measured"] = cq_ring.measure(final.positions, p.ring, p.substituents, p.other_rings,
+                                          cq_ring.trigonal_ring_atoms(p.mol, p.ring))
         write_vibrations(out_vib, final, proof.hessian)
         rec["vibrations"] = True
     rec["energy_hartree"] = proof.energy_hartree
