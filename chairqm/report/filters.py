@@ -114,6 +114,19 @@ def orientation_short(orientation) -> str:
     return ", ".join(f"{s} {ORIENT_SHORT.get(h, h)}" if h else s for s, h in pairs)
 
 
+def other_rings_short(text) -> str:
+    """'r2=chair:equatorial;r3=puckered:pseudo-axial' -> 'r2 chair (link eq), r3 puckered (link p-ax)';
+    '' for no other ring (empty, None, NaN or an undefined value)."""
+    if text is None or isinstance(text, float) or not str(text).strip() or str(text) == "nan":
+        return ""
+    parts = []
+    for item in str(text).split(";"):
+        label, _, state = item.partition("=")
+        form, _, link = state.partition(":")
+        parts.append(f"{label} {form}" + (f" (link {ORIENT_SHORT.get(link, link)})" if link else ""))
+    return ", ".join(parts)
+
+
 def orientation_words(orientation) -> str:
     """'s1=axial;s2=equatorial' -> 's1 axial and s2 equatorial'."""
     pairs = _orient_pairs(orientation)
@@ -160,5 +173,5 @@ def anchor(name) -> str:
     return "m-" + re.sub(r"[^A-Za-z0-9_.-]", "_", str(name))
 
 
-FILTERS = {f.__name__: f for f in (fmt_kcal, fmt_pct, fmt_t, fmt_seconds, fmt_coord, orientation_short,
+FILTERS = {f.__name__: f for f in (fmt_kcal, fmt_pct, fmt_t, fmt_seconds, fmt_coord, orientation_short, other_rings_short,
                                    orientation_words, short_label, plain, anchor)}
