@@ -22,6 +22,18 @@ within 87–98° or 173–177°; with the ring held by a coordinate map (chairqm
 some at 77–134° and 136–157°, and as neither force field can relax the centre, :func:`idealise` then
 turns each free ligand (with everything beyond it) onto the nearest direction of the best-fitting
 regular polyhedron (octahedron, trigonal bipyramid) at the bond length of the bounds.
+
+Exactly regular starts bring their own trap: a gradient optimisation keeps the symmetry of its start, and
+an SF5 whose equatorial F eclipse the ring C–H stops at the saddle point of its rotation (measured:
+0.77 kcal/mol above the minimum, 8.8i cm⁻¹, below the thermo stage's imaginary-mode threshold, so it was
+counted as a second equatorial conformer and moved the A-value by 0.27 kcal/mol). So the ligands around
+the bond to the rest of the molecule are turned as far from every mirror-symmetric position as they go
+(:func:`_off_mirrors`), and chairqm.rotamers treats such a group as a symmetric top (one start per form).
+
+Measured, ``chairqm avalue "[*]S(F)(F)(F)(F)F"`` on one core (GFN2-xTB, tblite, gas phase): before, 14
+seeds optimised, two of them 'bonds changed' (the F moved onto the ring carbon) and one not converged;
+after, 5 seeds, all converged with their bonds; both chairs' minima at the same energies as before
+(within 1e-6 hartree) and the same A-value, 1.13 kcal/mol.
 """
 
 from __future__ import annotations

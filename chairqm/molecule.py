@@ -16,6 +16,7 @@ from pathlib import Path
 from rdkit import Chem, RDLogger
 from rdkit.Chem.EnumerateStereoisomers import EnumerateStereoisomers, StereoEnumerationOptions
 
+from . import cages
 from .errors import ChairqmError
 
 RDLogger.DisableLog("rdApp.*")
@@ -217,6 +218,9 @@ def _fragment(mol, ring_atom, first, atoms) -> str:
     frags = []
     groups = Chem.GetMolFrags(pieces, asMols=True, sanitizeFrags=False, frags=frags)
     group = groups[frags[first]]
+    for a in group.GetAtoms():
+        if a.HasProp(cages.CAGE_FIXED):
+            a.SetChiralTag(Chem.ChiralType.CHI_UNSPECIFIED)   # the cage decides it: not written
     group = Chem.RemoveHs(group, sanitize=False)
     try:
         Chem.SanitizeMol(group)
@@ -226,15 +230,31 @@ def _fragment(mol, ring_atom, first, atoms) -> str:
 
 
 def _stereo(mol, name, enumerate_stereo):
-    """Return list of (suffix, mol) with stereo fully set, or raise naming unspecified ring stereocentres."""
+    """Return list of (suffix, mol) with stereo fully set, or raise naming unspecified ring stereocentres.
+    Centres a cage fixes (:func:`cage_fixed_centres`) are not asked for: they stay without a chiral tag
+    (RDKit's embedding cannot enforce one at the inverted bridgeheads of bicyclo[1.1.1]pentane, and the
+    cage builds itself right), marked with the atom property cages.CAGE_FIXED."""
     info = Chem.FindPotentialStereo(mol)
     unspecified = [s for s in info if s.specified == Chem.StereoSpecified.Unspecified]
+    fixed = cages.cage_fixed_centres(mol, [s.centeredOn for s in unspecified
+                                     if s.type == Chem.StereoType.Atom_Tetrahedral])
+    if fixed:
+        mol = Chem.Mol(mol)
+        for i in fixed:
+            mol.GetAtomWithIdx(i).SetBoolProp(cages.CAGE_FIXED, True)
+        info = [s for s in info if not (s.type == Chem.StereoType.Atom_Tetrahedral and s.centeredOn in fixed)]
+        unspecified = [s for s in unspecified
+                       if not (s.type == Chem.StereoType.Atom_Tetrahedral and s.centeredOn in fixed)]
     if not unspecified:
         return [("", mol)]
+    # enumeration below flips unassigned centres only: the cage's get a tag for it, removed afterwards
+    tagged = Chem.Mol(mol)
+    for i, tag in fixed.items():
+        tagged.GetAtomWithIdx(i).SetChiralTag(tag)
     if len(info) == 1:
         # one stereo element only: the two choices are enantiomers, whose conformer energies are equal
-        iso = next(iter(EnumerateStereoisomers(mol, options=StereoEnumerationOptions(onlyUnassigned=True, unique=True))))
-        return [("", iso)]
+        opts = StereoEnumerationOptions(onlyUnassigned=True, unique=True)
+        return [("", cages.without_cage_tags(next(iter(EnumerateStereoisomers(tagged, options=opts)))))]
     if not enumerate_stereo:
         parts = []
         for s in unspecified:
@@ -248,14 +268,18 @@ def _stereo(mol, name, enumerate_stereo):
         raise ChairqmError(f"{name}: stereo not specified at {', '.join(parts)}: write the relative configuration "
                            "(e.g. C[C@H]1CC[C@@H](C)CC1 for cis-1,4) or set 'enumerate_stereo: true'")
     opts = StereoEnumerationOptions(onlyUnassigned=True, unique=True, maxIsomers=MAX_STEREO_ISOMERS)
+    polycyclic = any(s & {x.centeredOn for x in unspecified} for s in cages.ring_systems(mol))
     out, seen = [], set()
-    for iso in EnumerateStereoisomers(mol, options=opts):
+    for iso in EnumerateStereoisomers(tagged, options=opts):
+        iso = cages.without_cage_tags(iso)
         smi = Chem.MolToSmiles(Chem.RemoveHs(iso))
         mirror = Chem.MolToSmiles(Chem.RemoveHs(mirror_image(iso)))
         key = min(smi, mirror)      # enantiomers have equal conformer energies: keep one of each pair
         if key in seen:
             continue
         seen.add(key)
+        if polycyclic and not cages.buildable(Chem.RemoveHs(iso)):
+            continue                # a combination no 3D structure has (one norbornane bridgehead inverted alone)
         out.append((f"-iso{len(out) + 1}", iso))
     return out
 
@@ -276,6 +300,8 @@ def _stereo_summary(mol) -> str:
     labels = []
     Chem.AssignStereochemistry(mol, cleanIt=True, force=True)
     for s in Chem.FindPotentialStereo(mol):
+        if s.type == Chem.StereoType.Atom_Tetrahedral and mol.GetAtomWithIdx(s.centeredOn).HasProp(cages.CAGE_FIXED):
+            continue
         if s.type == Chem.StereoType.Atom_Tetrahedral:
             a = mol.GetAtomWithIdx(s.centeredOn)
             lab = a.GetProp("_CIPCode") if a.HasProp("_CIPCode") else ("@" if a.GetChiralTag() == Chem.ChiralType.CHI_TETRAHEDRAL_CCW else "@@")
@@ -434,19 +460,6 @@ def _system_kind(mol, ring) -> str:
     return kinds[0] if kinds else "part of a fused, bridged or spiro ring system"
 
 
-def in_rigid_ring_system(mol, r, ring) -> bool:
-    """True when ring `r` of a group shares two or more atoms with another ring of the molecule (not the
-    analysed `ring`): a bridged or fused polycycle, such as the cages bicyclo[1.1.1]pentyl, norbornyl,
-    adamantyl, cubyl and bicyclo[2.2.2]octyl. Such a ring is not seeded in chair or pucker states
-    (chairqm.other_rings restrains each ring's torsions on its own, which would bend a cage, whose rings
-    cannot flip, and would set the rings of a fused polycycle independently of each other): it is left
-    rigid, as the embedding built it, and its state is not labelled."""
-    for other in mol.GetRingInfo().AtomRings():
-        if set(other) != set(r) and set(other) != set(ring) and len(set(other) & set(r)) >= 2:
-            return True
-    return False
-
-
 def _component(mol, ring_set, first) -> list[int]:
     """Every atom reachable from `first` without entering the analysed ring (hydrogens included)."""
     seen = {first}
@@ -546,6 +559,8 @@ def _other_rings(mol, ring, rings, fused=()) -> list[dict]:
     for r in list(rings) + small:
         if r == ring or set(r) & set(ring):
             continue
+        if cages.in_rigid_ring_system(mol, r, ring):
+            continue                      # a cage or fused polycycle inside a group stays as built
         best = None
         for a in r:
             for b in ring:
@@ -583,7 +598,7 @@ def _choose_ring(mol, rings, wanted=None, name="molecule"):
 
     def hetero(r):
         return sum(1 for i in r if mol.GetAtomWithIdx(i).GetSymbol() != "C")
-    return sorted(rings, key=lambda r: (-count(r), hetero(r), r))[0]
+    return sorted(rings, key=lambda r: (cages.in_bridged_system(mol, r), -count(r), hetero(r), r))[0]
 
 
 def substituents_table(p: Perceived):

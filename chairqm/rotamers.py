@@ -46,7 +46,8 @@ def rotatable_bonds(mol, ring, substituents, ranks=None) -> list[tuple[int, int,
 
     A bond counts if it is single, not in a ring, has a neighbour on both sides, neither end is sp
     (linear), and neither end is a symmetric top (three graph-equivalent outer neighbours: CH3, CF3,
-    C(CH3)3), whose rotation gives no new conformer.
+    C(CH3)3; a five- or six-coordinate centre with equivalent ligands: SF5), whose rotation gives no new
+    conformer.
     """
     if ranks is None:
         ranks = list(Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False))
@@ -77,6 +78,10 @@ def rotatable_bonds(mol, ring, substituents, ranks=None) -> list[tuple[int, int,
         if len(nb) == 3 and len({ranks[i] for i in nb}) == 1:
             continue
         if len(na) == 3 and len({ranks[i] for i in na}) == 1:
+            continue
+        if len(nb) >= 4 and len({ranks[i] for i in nb}) == 1:
+            # SF5 and the like, also a symmetric top: one start, which chairqm.coordination turns off the
+            # mirror-symmetric (saddle-point) positions; grid starts would put it back on them
             continue
 
         def pick(ns):

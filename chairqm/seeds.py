@@ -44,9 +44,10 @@ from rdkit import Chem, RDLogger
 from rdkit.Chem import AllChem
 from rdkit.Geometry import Point3D
 
-from . import chem, other_rings, rotamers, symmetry
+from . import chem, coordination, other_rings, rotamers, symmetry
 from . import ring as ringgeo
 from .errors import ChairqmError
+from .cages import cage_fixed_centres
 from .molecule import is_trigonal_exocyclic
 
 RDLogger.DisableLog("rdApp.*")
@@ -204,10 +205,13 @@ def _prepare(mol, ring, substituents, settings, other_rings=()) -> _Context:
                                "give the ring atoms in order around the ring")
     work, ref_tags, ref_bonds = chem.reference_stereo(mol)
     work.RemoveAllConformers()
-    for info in Chem.FindPotentialStereo(work):
-        if info.type == Chem.StereoType.Atom_Tetrahedral and info.centeredOn in ring \
-                and info.specified == Chem.StereoSpecified.Unspecified:
-            raise ChairqmError(f"stereo of ring atom {info.centeredOn} is not specified: give the relative "
+    loose = [info.centeredOn for info in Chem.FindPotentialStereo(work)
+             if info.type == Chem.StereoType.Atom_Tetrahedral and info.centeredOn in ring
+             and info.specified == Chem.StereoSpecified.Unspecified]
+    caged = cage_fixed_centres(work, loose) if loose else {}     # a cage decides these: no stereocentre
+    for centre in loose:
+        if centre not in caged:
+            raise ChairqmError(f"stereo of ring atom {centre} is not specified: give the relative "
                                "configuration in the input (e.g. [C@H] / [C@@H])")
     ranks = list(Chem.CanonicalRankAtoms(work, breakTies=False, includeChirality=False))
     ring_set = set(ring)
@@ -372,8 +376,9 @@ def _embed(ctx, pos, seed):
     for cmap in attempts:
         for extra in range(3):
             try:
-                cid = AllChem.EmbedMolecule(ctx.mol, coordMap=cmap, randomSeed=seed + extra, useRandomCoords=True,
-                                            enforceChirality=True, maxAttempts=50)
+                # chairqm.coordination: the plain RDKit call, or polyhedron bounds for an SF5-like centre
+                cid = coordination.embed(ctx.mol, coordMap=cmap, randomSeed=seed + extra, useRandomCoords=True,
+                                         enforceChirality=True, maxAttempts=50)
             except RuntimeError:        # RDKit's optimiser can stop on an impossible coordinate map
                 cid = -1
             if cid < 0:
