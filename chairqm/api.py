@@ -132,6 +132,36 @@ class CheckResult:
         return format_rows(rows)
 
     @property
+    def refine_estimate(self) -> str:
+        """With settings.refine: per molecule the basis size and the estimated time and memory of one DFT
+        single point (chairqm.refine.estimate), and the run's total for the typical number of single points;
+        '' without refinement."""
+        block = self.cfg["settings"].get("refine")
+        if block is None:
+            return ""
+        from . import refine
+        rs = refine.resolve(block)
+        rows = [("molecule", "atoms", "basis functions", "s per single point", "integrals in memory")]
+        total = 0.0
+        notes = set()
+        for m in self.plan.molecules:
+            e = refine.estimate(rs, [a.GetSymbol() for a in m.mol.GetAtoms()])
+            total += e["seconds"]
+            mem = f"{e['memory_mb']:.0f} MB" + (" (out of core)" if e["out_of_core"] else "")
+            if e["out_of_core"]:
+                notes.add("out of core: the integrals exceed max_memory_mb and go to scratch files in "
+                          "<molecule>/work/refine/scratch, which is slower")
+            rows.append((m.name, str(m.mol.GetNumAtoms()), str(e["n_basis"]), f"{e['seconds']:.0f}", mem))
+        k = refine.TYPICAL_SINGLE_POINTS
+        text = (f"DFT refinement {rs['functional']}/{rs['basis']} (estimates; one thread per single point):\n"
+                + format_rows(rows)
+                + f"\nabout {k} single points per molecule (2-6 with the default window): about "
+                f"{k * total / 3600:.1f} CPU hours in all; each worker may use up to {refine.worker_memory_cap_mb(rs)} "
+                f"MB (max_memory_mb {rs['max_memory_mb']} + {refine.WORKER_OVERHEAD_MB}), beyond which its single "
+                "point fails on its own")
+        return text + "".join(f"\n{n}" for n in sorted(notes))
+
+    @property
     def settings_line(self) -> str:
         s = self.cfg["settings"]
         return (f"{len(self.plan.molecules)} molecule(s); {s['method']} with {s['engine']}; solvent: "

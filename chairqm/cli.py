@@ -33,6 +33,8 @@ resolve_profiles = api.resolve_profiles
 def cmd_check(args) -> int:
     result = api.check(args.config)
     print(result.table)
+    if result.refine_estimate:
+        print("\n" + result.refine_estimate)
     print("\n" + result.settings_line)
     return 0
 

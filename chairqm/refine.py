@@ -96,6 +96,55 @@ def energy_settings(settings) -> dict:
     return {k: v for k, v in resolve(settings).items() if k not in _NOT_ENERGY}
 
 
+#: Time of one single point at the default level (B3LYP-D3(BJ)/def2-TZVP, density fitting, one PySCF
+#: thread) for REFERENCE_BASIS_FUNCTIONS basis functions, and the power it grows with: fitted by eye to the
+#: refined reference run in docs/benchmarks.md, part e (82 s for methylcyclohexane's 301 functions, 180 s
+#: for 394, 266 s for 468; median 126 s), which the cubic law meets within about 20 %.
+REFERENCE_SECONDS = 80.0
+REFERENCE_BASIS_FUNCTIONS = 300
+TIME_POWER = 3
+#: Single points a molecule takes: the lowest conformer of each chair family at least, typically 2-6 with
+#: the default window (median 3 in the refined reference run).
+TYPICAL_SINGLE_POINTS = 3
+#: Memory a refine worker may take beyond settings.refine.max_memory_mb: the interpreter with PySCF and
+#: its libraries, and address space they reserve without using it. Measured: 0.5 GB of address space for a
+#: water single point; 2.34 GB of address space (1.96 GB resident) at the peak of acetoxycyclohexane's
+#: default-level single point (24 atoms, 394 basis functions, max_memory_mb 2000), 1.16 GB below the cap.
+#: The workflow rule reserves max_memory_mb + 500 MB of resident memory per worker.
+WORKER_OVERHEAD_MB = 1500
+
+
+def worker_memory_cap_mb(settings) -> int:
+    """The address-space limit of one refine worker: max_memory_mb + WORKER_OVERHEAD_MB."""
+    return int(resolve(settings)["max_memory_mb"]) + WORKER_OVERHEAD_MB
+
+
+def estimate(settings, elements) -> dict:
+    """What one single point of a molecule will cost, before running it: {"n_basis", "n_aux" (density
+    fitting, else None), "seconds" (one thread, default-level timing scaled by the basis size, see
+    REFERENCE_SECONDS), "memory_mb" (PySCF's working memory: the density-fitting integrals, capped by
+    max_memory_mb, beyond which PySCF works from scratch files), "out_of_core" (True when the integrals do
+    not fit in max_memory_mb), "worker_mb" (what the worker may take in all)}. Builds the basis only (no
+    integrals): milliseconds after the PySCF import."""
+    from pyscf import df, gto
+    s = resolve(settings)
+    symbols = [str(e) for e in elements]
+    atom = [[sym, (0.0, 0.0, 3.0 * i)] for i, sym in enumerate(symbols)]
+    nelec = sum(gto.charge(sym) for sym in symbols)
+    mol = gto.M(atom=atom, basis=s["basis"], spin=nelec % 2, verbose=0)
+    nao = int(mol.nao_nr())
+    naux = None
+    work_mb = 8 * nao * nao * 12 / 1e6                  # Fock, density and orbital matrices, DIIS history
+    if s["density_fitting"]:
+        naux = int(df.make_auxmol(mol, df.addons.make_auxbasis(mol, mp2fit=False)).nao_nr())
+        work_mb += 8 * naux * nao * (nao + 1) / 2 / 1e6    # the three-index integrals PySCF keeps
+    cap = float(s["max_memory_mb"])
+    return {"n_basis": nao, "n_aux": naux,
+            "seconds": REFERENCE_SECONDS * (nao / REFERENCE_BASIS_FUNCTIONS) ** TIME_POWER,
+            "memory_mb": min(work_mb, cap), "out_of_core": work_mb > cap,
+            "worker_mb": worker_memory_cap_mb(s)}
+
+
 def _physical_memory_mb() -> float | None:
     try:
         return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES") / 2 ** 20

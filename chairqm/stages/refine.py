@@ -8,6 +8,7 @@ composite free energies are formed by the ensemble stage (chairqm.refine.composi
 
 from __future__ import annotations
 
+import contextlib
 from pathlib import Path
 
 from .. import fileio
@@ -23,15 +24,23 @@ def refine_settings(settings):
 
 
 def _refine_one(job):
-    """One DFT single point on a GFN2-xTB minimum; record written atomically."""
+    """One DFT single point on a GFN2-xTB minimum, its address space capped (memory_cap); record written
+    atomically."""
     from .. import dft
+    from .. import refine as cq_refine
     name, cid, key, rs, es, solvent, xyz, out_json, scratch = job
     p = load_molecule(name)
     atoms = read_xyz(xyz)
     if fault("dft_scf", f"{name}/{cid}"):
         rs = dict(rs, max_cycle=1)     # a real SCF that cannot converge in one iteration, fallback included
-    res = dft.single_point(atoms, p.charge, p.multiplicity, rs, threads=1, scratch_dir=scratch,
-                                 solvent=solvent)
+    cap = cq_refine.worker_memory_cap_mb(rs)
+    with memory_cap(cap):
+        res = dft.single_point(atoms, p.charge, p.multiplicity, rs, threads=1, scratch_dir=scratch,
+                               solvent=solvent)
+    if "MemoryError" in res.get("message", ""):
+        res["message"] = (f"{res['message']}: the single point needed more than this worker's {cap} MB "
+                          f"(settings.refine.max_memory_mb {rs['max_memory_mb']} + {cq_refine.WORKER_OVERHEAD_MB} "
+                          "for the interpreter and libraries): raise max_memory_mb, or choose a smaller basis")
     solv = 0.0
     if res.get("converged") and solvent and rs["solvent_model"] == "gfn2-delta":
         solv = dft.xtb_solvation_hartree(atoms, es)
@@ -39,6 +48,26 @@ def _refine_one(job):
            "status": "ok" if res.get("converged") else "failed", "reason": res.get("message", "")}
     fileio.write_json(out_json, rec)
     return rec
+
+
+@contextlib.contextmanager
+def memory_cap(mb: int):
+    """Limit this process's address space to `mb` MB (RLIMIT_AS, soft) while the block runs, then restore
+    it: an allocation beyond it raises MemoryError in this single point instead of the machine swapping
+    or the kernel killing a process. Only lowers a limit, never raises one set from outside."""
+    import resource
+    soft, hard = resource.getrlimit(resource.RLIMIT_AS)
+    want = int(mb) * 2 ** 20
+    if hard != resource.RLIM_INFINITY:
+        want = min(want, hard)
+    if soft != resource.RLIM_INFINITY and soft <= want:
+        yield
+        return
+    resource.setrlimit(resource.RLIMIT_AS, (want, hard))
+    try:
+        yield
+    finally:
+        resource.setrlimit(resource.RLIMIT_AS, (soft, hard))
 
 
 def run(cfg, plan, name, threads=1):
