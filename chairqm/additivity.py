@@ -141,8 +141,9 @@ def reference_smiles(fragment: str) -> str:
     return Chem.MolToSmiles(joined)
 
 
-def needs_reference(substituents) -> list[str]:
-    """Canonical fragments of the groups with no tabulated A-value, in order of first appearance.
+def needs_reference(substituents, every_group: bool = False) -> list[str]:
+    """Canonical fragments of the groups with no tabulated A-value (with `every_group`, of every group:
+    the same-method A-values), in order of first appearance.
 
     `substituents`: objects or dicts with a `fragment` (and optionally `charge`), or fragment strings.
     Charged groups are left out (they are outside the additive model, so no reference would be used),
@@ -156,7 +157,7 @@ def needs_reference(substituents) -> list[str]:
         charge = 0 if isinstance(s, str) else int(_get(s, "charge", 0) or 0)
         if frag == "[*][H]" or charge != 0 or _fragment_charge(frag) != 0:
             continue
-        if avalues.lookup(frag) is None and frag not in out:
+        if (every_group or avalues.lookup(frag) is None) and frag not in out:
             out.append(frag)
     return out
 
@@ -446,3 +447,122 @@ def disagreement(computed_preferred, computed_dg, additive: AdditiveEstimate, no
         reasons.append(f"non-chair families hold {100 * ncp:.1f} % of the population "
                        f"(more than {100 * nct:.0f} %)")
     return bool(reasons), "; ".join(reasons)
+
+
+# ------------------------------------------------------------------------------ same-method additivity
+
+#: kcal/mol, the spread of one computed A-value about experiment when no calibration matches the run:
+#: the packaged gas-phase calibration's residual SD (docs/accuracy.md: 0.268), rounded up
+DEFAULT_GROUP_SD_KCAL = 0.3
+
+
+@dataclass
+class SameMethod:
+    """The chair gap the run's own A-values predict, and what the computed gap adds to it."""
+    dg_kcal: float | None             # G(second computed chair) - G(preferred computed chair), additive
+    interaction_kcal: float | None    # computed gap minus dg_kcal
+    uncertainty_kcal: float | None    # 95 % half-width of interaction_kcal
+    missing: list = field(default_factory=list)      # groups without a same-method A-value
+    carriers: list = field(default_factory=list)     # the pairs and positions that may carry it, in words
+    terms: list = field(default_factory=list)        # (description, kcal/mol)
+
+
+def _carriers(ring_atoms, ring_elements, subs, moving) -> list[str]:
+    """In words, where a non-additive term can sit: pairs of groups that change orientation together
+    (geminal, vicinal, 1,3 — syn when both are axial in one chair) and groups next to a ring heteroatom
+    or on a ring N."""
+    pos = {a: k for k, a in enumerate(ring_atoms)}
+    out = []
+    for i, s in enumerate(subs):
+        for t in subs[i + 1:]:
+            if s.id not in moving and t.id not in moving:
+                continue
+            d = _ring_distance(pos[s.ring_atom], pos[t.ring_atom])
+            if d == 0:
+                out.append(f"geminal pair {s.id}/{t.id}")
+            elif d == 1:
+                out.append(f"vicinal pair {s.id}/{t.id}")
+            elif d == 2:
+                out.append(f"1,3 pair {s.id}/{t.id} (syn-diaxial in one chair when cis)")
+    for s in subs:
+        k = pos[s.ring_atom]
+        if ring_elements[k] != "C":
+            out.append(f"{s.id} on the ring {ring_elements[k]} atom {s.ring_atom}")
+            continue
+        for m in range(6):
+            if ring_elements[m] != "C" and _ring_distance(k, m) in (1, 2):
+                where = "next to" if _ring_distance(k, m) == 1 else "1,3 to"
+                out.append(f"{s.id} {where} the ring {ring_elements[m]} atom {ring_atoms[m]}")
+    return out
+
+
+def same_method(ring_atoms, ring_elements, substituents, preferred, second, computed_dg, qm_a_values,
+                group_sd_kcal: float = DEFAULT_GROUP_SD_KCAL) -> SameMethod:
+    """The same-method additive chair gap and the interaction (chairqm's own non-additivity measure).
+
+    preferred, second: the computed preferred chair and its ring-flip partner (orientation strings, the
+    chair-defining groups only, as chairqm.ensemble.chair_summary gives them); computed_dg: the computed
+    gap G(second) - G(preferred) (None: unknown); qm_a_values: {fragment: A-value computed with the run's
+    own settings (its monosubstituted cyclohexane)}.
+
+    dg = sum over the groups of A * (axial in second - axial in preferred): A-values only, no pair terms,
+    so that the interaction (computed - dg) is everything that is not additive — syn-1,3-diaxial and
+    gauche pairs, geminal effects, ring heteroatoms. Its 95 % half-width: 1.96 * group_sd * sqrt(n + 1)
+    for n A-values that enter (each reference ring and the molecule itself carry about one group's
+    residual spread; the method's systematic error largely cancels between the molecule and its
+    reference rings, which is the point of a same-method comparison).
+    """
+    ring_atoms, ring_elements = _ring_positions(ring_atoms, ring_elements)
+    subs = [s for s in _as_substituents(substituents) if not is_fusion(s) and s.fragment != "[*][H]"]
+    pref = parse_orientation(preferred) if isinstance(preferred, str) else dict(preferred or {})
+    sec = parse_orientation(second) if isinstance(second, str) else dict(second or {})
+    qm = {}
+    for k, v in (qm_a_values or {}).items():
+        if v is not None and math.isfinite(float(v)):
+            qm[avalues.canonical_fragment(k)] = float(v)
+    terms, missing, moving = [], [], set()
+    for s in subs:
+        if s.id not in pref or s.id not in sec:
+            continue                     # not a chair-defining group (e.g. on a ring N, which inverts)
+        change = (sec[s.id] == "axial") - (pref[s.id] == "axial")
+        if change == 0:
+            continue
+        moving.add(s.id)
+        if s.fragment not in qm:
+            missing.append(f"{s.id} {s.fragment}")
+            continue
+        terms.append((f"A({s.id} {s.fragment}) = {qm[s.fragment]:.2f}, {s.id} axial in the "
+                      f"{'second' if change > 0 else 'preferred'} chair", change * qm[s.fragment]))
+    carriers = _carriers(ring_atoms, ring_elements, subs, moving)
+    if missing or not moving and not pref:
+        return SameMethod(None, None, None, missing, carriers, terms)
+    dg = float(sum(v for _, v in terms))
+    u = 1.96 * float(group_sd_kcal) * math.sqrt(len(terms) + 1)
+    inter = None if computed_dg is None else float(computed_dg) - dg
+    return SameMethod(dg, inter, u, missing, carriers, terms)
+
+
+def interaction_flag(sm: SameMethod, threshold_kcal: float, tie_kcal: float = 0.05,
+                     ring_elements=None) -> tuple[bool, str]:
+    """(flag, reason) about additivity: the interaction exceeds its uncertainty (and the configurable
+    threshold), or the same-method additive estimate prefers the other chair. Never about the method
+    against experiment."""
+    if sm.dg_kcal is None or sm.interaction_kcal is None:
+        return False, ""
+    limit = max(float(sm.uncertainty_kcal or 0.0), float(threshold_kcal))
+    where = ("; carried by " + ", ".join(sm.carriers)) if sm.carriers else ""
+    hetero = sorted({e for e in (ring_elements or []) if e != "C"})
+    reasons = []
+    if sm.dg_kcal < -tie_kcal and abs(sm.interaction_kcal) > tie_kcal:
+        reasons.append(f"the run's own A-values prefer the other chair (additive {sm.dg_kcal:+.2f} kcal/mol on "
+                       "the computed chairs' axis)")
+    if abs(sm.interaction_kcal) > limit:
+        what = (f"the cyclohexane A-values do not transfer to this {'/'.join(hetero)} ring" if hetero and not
+                any("pair" in c for c in sm.carriers) else "non-additive")
+        reasons.append(f"{what}: interaction {sm.interaction_kcal:+.2f} ± {sm.uncertainty_kcal:.2f} kcal/mol "
+                       f"beyond the same-method additive gap {sm.dg_kcal:.2f} (limit {limit:.2f}){where}")
+    if reasons:
+        return True, "; ".join(reasons)
+    verdict = ("the cyclohexane A-values transfer to this ring" if hetero else "additive")
+    return False, (f"{verdict} within {limit:.2f} kcal/mol: interaction {sm.interaction_kcal:+.2f} ± "
+                   f"{sm.uncertainty_kcal:.2f} against the same-method additive gap {sm.dg_kcal:.2f}")

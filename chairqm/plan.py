@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from .errors import ChairqmError
@@ -15,6 +15,9 @@ REFERENCE_PREFIX = "ref-"
 class Plan:
     molecules: list[Perceived]        # user molecules, then automatic reference molecules
     problems: list[str]               # one line per input problem (empty when the plan is usable)
+    # same-method A-values taken from the reference cache instead of a reference ring of this run:
+    # fragment -> {temperature: A-value} (chairqm.reference_cache)
+    cached: dict = field(default_factory=dict)
 
     def names(self) -> list[str]:
         return [m.name for m in self.molecules]
@@ -26,9 +29,11 @@ class Plan:
         raise ChairqmError(f"no molecule named {name!r} in this configuration")
 
     def references_for(self, name: str) -> dict[str, str]:
-        """fragment -> name of the molecule whose computed A-value serves as the QM-derived value, for the
-        groups of `name` that have no tabulated A-value. A monosubstituted cyclohexane defines its own
-        group's value and never waits for another molecule (so no two molecules can wait for each other)."""
+        """fragment -> name of the molecule whose computed A-value serves as the same-method (QM-derived)
+        value, for the groups of `name` on ring carbons (every group: the tabulated ones too). A
+        monosubstituted cyclohexane defines its own group's value and never waits for another molecule (so
+        no two molecules can wait for each other). Groups whose value comes from the reference cache are
+        in `cached`, not here."""
         from .additivity import needs_reference
         mol = self.get(name)
         if _is_mono_cyclohexane(mol):
@@ -37,7 +42,7 @@ class Plan:
         for m in sorted(self.molecules, key=lambda m: (not m.reference, m.name)):
             if _is_mono_cyclohexane(m):
                 refs.setdefault(m.substituents[0].fragment, m.name)
-        wanted = needs_reference(mol.substituents)
+        wanted = needs_reference(_on_ring_carbon(mol), every_group=True)
         return {f: refs[f] for f in wanted if f in refs}
 
 
@@ -67,9 +72,10 @@ def make_plan(cfg: dict) -> Plan:
     for n in sorted({m.name for m, f in zip(mols, folded) if folded.count(f) > 1}, key=str.casefold):
         problems.append(f"molecule name '{n}' occurs twice after stereoisomer expansion (names are compared "
                         "ignoring case, because each becomes a folder): rename one")
+    cached = {}
     if settings.get("analysis", {}).get("reference_groups", True) and not problems:
-        mols.extend(_reference_molecules(mols, settings, problems))
-    return Plan(mols, problems)
+        mols.extend(_reference_molecules(mols, settings, problems, cached))
+    return Plan(mols, problems, cached)
 
 
 def perceive_entry(entry: dict, base, settings: dict) -> list[Perceived]:
@@ -90,17 +96,26 @@ def _on_ring_carbon(m):
     return [s for s in m.substituents if elements.get(s.ring_atom) == "C" and not s.fragment.startswith("[*]=")]
 
 
-def _reference_molecules(mols, settings, problems):
-    try:
-        from . import additivity
-    except ImportError:          # the additivity module is optional during development of early stages
-        return []
+def _reference_molecules(mols, settings, problems, cached=None):
+    """The reference ring (monosubstituted cyclohexane) of every group on a ring carbon that no molecule of
+    the configuration already is, unless the reference cache holds its A-value at every temperature of the
+    run and no folder of that reference ring exists here yet (a run that started computing one keeps it,
+    so every job of a run sees the same plan). `cached` receives the cached values."""
+    from . import additivity, reference_cache
     have = {m.substituents[0].fragment for m in mols if len(m.substituents) == 1
             and m.ring_elements == ["C"] * 6}
+    temps = settings.get("temperatures_k") or [298.15]
     out = []
-    for frag in sorted({f for m in mols for f in additivity.needs_reference(_on_ring_carbon(m))}):
+    for frag in sorted({f for m in mols if not m.reference
+                        for f in additivity.needs_reference(_on_ring_carbon(m), every_group=True)}):
         if frag in have or frag == "[*][H]":
             continue
+        if not Path(_slug(frag)).exists():
+            hit = reference_cache.lookup(frag, settings, temps)
+            if hit is not None:
+                if cached is not None:
+                    cached[frag] = hit
+                continue
         try:
             smi = additivity.reference_smiles(frag)
             for p in perceive({"name": _slug(frag), "smiles": smi, "reference": True,

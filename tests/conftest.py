@@ -1,6 +1,9 @@
 import os
 
 os.environ.setdefault("OMP_NUM_THREADS", "1")
+# the shared reference-ring cache is off in tests (each run computes its own reference rings, so no test
+# depends on another's leftovers); tests of the cache set it to their own folder
+os.environ.setdefault("CHAIRQM_REFERENCE_CACHE", "off")
 
 import pytest  # noqa: E402
 import yaml  # noqa: E402

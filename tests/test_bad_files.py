@@ -118,7 +118,7 @@ def same(smiles):
     want = Chem.MolToSmiles(Chem.MolFromSmiles(smiles))
 
     def check(res):
-        assert [m.smiles for m in res.plan.molecules] == [want]
+        assert [m.smiles for m in res.plan.molecules if not m.reference] == [want]
     return check
 
 

@@ -131,7 +131,10 @@ def symmetric_partner(folder: Path, partner_orientation) -> str:
 
 
 def _qm_a_values(plan, name, temperature):
-    out = {}
+    """{fragment: same-method A-value at `temperature`} for the groups of `name`: from this run's reference
+    rings, or from the reference cache where the plan took them from there."""
+    out = {frag: vals[float(temperature)] for frag, vals in getattr(plan, "cached", {}).items()
+           if float(temperature) in vals}
     for frag, ref in plan.references_for(name).items():
         path = Path(ref) / "ensemble.json"
         if not path.is_file():
@@ -187,6 +190,24 @@ def _analyse_temperature(p, plan, name, settings, usable_df, t):
         flag, why = cq_add.disagreement(summ.get("preferred_chair_axial"), summ.get("chair_dg_kcal"), est,
                                         summ.get("twist_boat_population", 0.0), an["flag_threshold_kcal"],
                                         an["non_chair_threshold"])
+    same = None
+    if (an.get("reference_groups", True) and summ.get("chair_dg_kcal") is not None
+            and summ.get("preferred_chair_orientation") is not None):
+        from .. import calibration as cq_cal
+        cal = cq_cal.load_matching(settings)
+        sd = cal.residual_sd_kcal if cal is not None else cq_add.DEFAULT_GROUP_SD_KCAL
+        same = cq_add.same_method(p.ring, p.ring_elements, p.substituents, summ["preferred_chair_orientation"],
+                                  summ["second_chair_orientation"] or "", summ["chair_dg_kcal"], qm, sd)
+        if same.dg_kcal is not None:
+            # the flag is about additivity against the run's own A-values; the method-against-experiment
+            # difference (the tabulated estimate) is shown beside it and never raises the flag by itself
+            flag, why = cq_add.interaction_flag(same, an["flag_threshold_kcal"], ring_elements=p.ring_elements)
+            tb = summ.get("twist_boat_population", 0.0) or 0.0
+            if tb > an["non_chair_threshold"]:
+                extra = (f"non-chair families hold {100 * tb:.1f} % of the population "
+                         f"(more than {100 * an['non_chair_threshold']:.0f} %)")
+                why = f"{why}; {extra}" if flag else f"{extra} ({why})"
+                flag = True
     if locked and summ.get("chair_dg_kcal") is None and summ.get("preferred_chair") is not None:
         flag, why = False, summ["note"].split("; ")[-1]
     if own and not reasons:
@@ -210,6 +231,10 @@ def _analyse_temperature(p, plan, name, settings, usable_df, t):
            "twist_boat_population": _clean(summ.get("twist_boat_population")),
            "preferred_chair": summ.get("preferred_chair"), "second_chair": summ.get("second_chair"),
            "additive": additive, "flag": bool(flag), "flag_reason": why, "note": summ.get("note", "")}
+    if same is not None:
+        row["same_method"] = {"dg_kcal": _clean(same.dg_kcal), "interaction_kcal": _clean(same.interaction_kcal),
+                              "uncertainty_kcal": _clean(same.uncertainty_kcal), "missing": same.missing,
+                              "carriers": same.carriers, "terms": [[str(a), _clean(b)] for a, b in same.terms]}
     return fam, row
 
 
@@ -299,6 +324,7 @@ def run(cfg, plan, name, threads=1):
         for row in out["temperatures"]:
             row["flag"] = True
             row["flag_reason"] = "; ".join(x for x in (row["flag_reason"], why) if x)
+    _store_reference(p, settings, out)
     fam_cols = tables.families(settings)
     fams = pd.concat(fam_frames, ignore_index=True) if fam_frames else tables.frame([], fam_cols)
     fileio.write_csv(folder / "families.csv", fams.reindex(columns=fam_cols))
@@ -306,6 +332,21 @@ def run(cfg, plan, name, threads=1):
     fileio.write_csv(folder / "conformers.csv", conf_df)
     write_sdf(folder / "conformers.sdf", p, confs, temps[0], conf_df)
     fileio.write_json(folder / "ensemble.json", out)
+
+
+def _store_reference(p, settings, out):
+    """A monosubstituted cyclohexane's A-values go to the reference cache (chairqm.reference_cache), where
+    later runs with the same settings take them instead of computing the ring again."""
+    if out.get("status") != "ok" or len(p.substituents) != 1 or p.ring_elements != ["C"] * 6:
+        return
+    if not (settings.get("analysis") or {}).get("reference_groups", True):
+        return
+    from .. import reference_cache
+    values = {row["temperature_k"]: row["a_value_kcal"] for row in out["temperatures"]
+              if row.get("a_value_kcal") is not None}
+    if values:
+        reference_cache.store(p.substituents[0].fragment, settings, values,
+                              source=f"{Path.cwd() / p.name} ({p.smiles})")
 
 
 def write_sdf(path, p, confs, t0, conf_df):

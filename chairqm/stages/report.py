@@ -68,6 +68,9 @@ def summary_rows(cfg, plan) -> list[dict]:
                          "chair_dg_kcal": r["chair_dg_kcal"], "a_value_kcal": r["a_value_kcal"],
                          "twist_boat_population": r["twist_boat_population"],
                          "additive_dg_kcal": add.get("dg_kcal"), "additive_source": add.get("source", ""),
+                         "additive_same_method_kcal": (r.get("same_method") or {}).get("dg_kcal"),
+                         "interaction_kcal": (r.get("same_method") or {}).get("interaction_kcal"),
+                         "interaction_uncertainty_kcal": (r.get("same_method") or {}).get("uncertainty_kcal"),
                          "flag": bool(r["flag"]), "flag_reason": r["flag_reason"],
                          "refined": bool(ens.get("refined")),
                          "chair_dg_unrefined_kcal": (r.get("unrefined") or {}).get("chair_dg_kcal"),
@@ -104,7 +107,16 @@ def provenance(cfg, plan, calibration_note) -> dict:
             "wall_seconds": round(now - started["epoch"], 2) if "epoch" in started else None,
             "engine_seconds": round(engine_s, 2), "gradient_calls": calls,
             "engine_seconds_note": "engine time summed over the stages that computed in this folder, including reused records",
-            "n_cpus": os.cpu_count(), "calibration": calibration_note}
+            "n_cpus": os.cpu_count(), "calibration": calibration_note,
+            "reference_cache": _cache_note(cfg, plan)}
+
+
+def _cache_note(cfg, plan) -> dict:
+    """Which same-method A-values came from the reference cache instead of this run's reference rings."""
+    from .. import reference_cache
+    root = reference_cache.folder(cfg["settings"])
+    return {"folder": str(root) if root is not None else None,
+            "used": {frag: {f"{t:g}": v for t, v in vals.items()} for frag, vals in getattr(plan, "cached", {}).items()}}
 
 
 def write_db(plan, path="conformers.db"):

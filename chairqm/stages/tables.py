@@ -60,7 +60,8 @@ def summary(settings) -> list[str]:
              "chair_dg_kcal", "a_value_kcal", "twist_boat_population", "additive_dg_kcal",
              "additive_source", "flag", "flag_reason"]
             + ["calibrated_kcal", "interval_low_kcal", "interval_high_kcal", "calibrated_quantity"]
-            + (["refined", "chair_dg_unrefined_kcal", "a_value_unrefined_kcal"] if _refined(settings) else []))
+            + (["refined", "chair_dg_unrefined_kcal", "a_value_unrefined_kcal"] if _refined(settings) else [])
+            + ["additive_same_method_kcal", "interaction_kcal", "interaction_uncertainty_kcal"])
 
 
 def frame(rows, columns):
