@@ -86,3 +86,11 @@ def test_known_population_narrows_the_window_by_rt_ln_of_it():
     wide = fw.auto_window_kcal([t])
     assert fw.auto_window_kcal([t], z_ratios={t: math.e}) == pytest.approx(wide - R_CAL * 1e-3 * t, abs=1e-6)
     assert fw.auto_window_kcal([t], z_ratios={t: 0.5}) == wide      # Z_S ≥ w_0 always: never widened
+
+
+def test_no_minimum_at_all_keeps_the_default_window():
+    # every seed failed: the thermo stage's window step has nothing to weigh and must not stop on it
+    from chairqm import frequency_window as fw
+    from chairqm.stages.thermo import _phase_window
+    temps = [298.15]
+    assert _phase_window({}, temps, {}, None, {"conformers": []}, {}, set()) == fw.auto_window_kcal(temps)

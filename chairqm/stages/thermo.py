@@ -199,6 +199,8 @@ def _phase_window(th, temps, recs, work, minima, es, first):
     electronic energy has no usable Hessian)."""
     from .. import frequency_window as cq_fw
     confs = minima["conformers"]
+    if not confs:                       # every seed failed: nothing to weigh, the default window stands
+        return cq_fw.auto_window_kcal(temps)
     lowest = min(confs, key=lambda c: (c["energy_hartree"], c["conformer"]))["conformer"]
     usable = [c["conformer"] for c in confs if c["conformer"] in first and recs[c["conformer"]]["status"] == "ok"
               and recs[c["conformer"]]["proof"]["n_imaginary"] == 0 and recs[c["conformer"]].get("vibrations")]
