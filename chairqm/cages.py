@@ -13,6 +13,7 @@ from __future__ import annotations
 from rdkit import Chem
 from rdkit.Chem import AllChem
 
+
 def ring_systems(mol) -> list[set[int]]:
     """The atoms of each polycyclic ring system (rings joined through shared atoms, two rings or more)."""
     systems = []

@@ -218,9 +218,6 @@ def _fragment(mol, ring_atom, first, atoms) -> str:
     frags = []
     groups = Chem.GetMolFrags(pieces, asMols=True, sanitizeFrags=False, frags=frags)
     group = groups[frags[first]]
-    for a in group.GetAtoms():
-        if a.HasProp(cages.CAGE_FIXED):
-            a.SetChiralTag(Chem.ChiralType.CHI_UNSPECIFIED)   # the cage decides it: not written
     group = Chem.RemoveHs(group, sanitize=False)
     try:
         Chem.SanitizeMol(group)
@@ -231,13 +228,13 @@ def _fragment(mol, ring_atom, first, atoms) -> str:
 
 def _stereo(mol, name, enumerate_stereo):
     """Return list of (suffix, mol) with stereo fully set, or raise naming unspecified ring stereocentres.
-    Centres a cage fixes (:func:`cage_fixed_centres`) are not asked for: they stay without a chiral tag
+    Centres a cage fixes (:func:`chairqm.cages.cage_fixed_centres`) are not asked for: they stay without a chiral tag
     (RDKit's embedding cannot enforce one at the inverted bridgeheads of bicyclo[1.1.1]pentane, and the
     cage builds itself right), marked with the atom property cages.CAGE_FIXED."""
     info = Chem.FindPotentialStereo(mol)
     unspecified = [s for s in info if s.specified == Chem.StereoSpecified.Unspecified]
     fixed = cages.cage_fixed_centres(mol, [s.centeredOn for s in unspecified
-                                     if s.type == Chem.StereoType.Atom_Tetrahedral])
+                                           if s.type == Chem.StereoType.Atom_Tetrahedral])
     if fixed:
         mol = Chem.Mol(mol)
         for i in fixed:
