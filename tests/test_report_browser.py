@@ -3,8 +3,8 @@ figures drawn, and it makes no network request.
 
 Every request the browser makes goes to a recording proxy on the loopback interface (--proxy-server);
 the browser's own calls home (BROWSER_OWN) are set aside; a control page with one remote image must show
-up there, so the "no request" check can fail. The 3-D
-views of issue 18 are not built yet, so nothing here looks for them."""
+up there, so the "no request" check can fail. The page with the 3-D views of real geometries is loaded
+the same way in tests/test_report_3d.py."""
 
 from __future__ import annotations
 

@@ -1,15 +1,16 @@
 """The run report: one self-contained HTML page (inline CSS and SVG, no network) a chemist reads after a run.
 
 `write_report(out_dir, run_info, summary_rows=...)` reads the result files of a run's output folder once —
-per molecule `molecule.json`, `families.csv`, `conformers.csv`, `minima.csv`, `ensemble.json` (and, after a
-DFT refinement, `refine.csv` and `refine.json`) — takes the run's summary rows from the caller (or, when
+per molecule `molecule.json`, `families.csv`, `conformers.csv`, `conformers.sdf`, `minima.csv`,
+`ensemble.json` (and, after a DFT refinement, `refine.csv` and `refine.json`) — takes the run's summary rows from the caller (or, when
 none are given, from `summary.csv`) and writes `report.html` next to them. Nothing is computed here beyond
 formatting: every number on the page is read from those files (the one exception: a refined molecule's
 GFN2-xTB-only chair gap is given the sign of the refined chairs' axis in the additive table), so the page
 and the machine-readable results cannot disagree.
 
 Layout: model.py reads the folder into dataclasses, figures.py draws the inline SVG (matplotlib, RDKit),
-filters.py formats values, page.py renders templates/*.html.j2 with Jinja2 (autoescaping on).
+views3d.py the leading conformers in 3-D (static SVG from conformers.sdf, no script), filters.py formats
+values, page.py renders templates/*.html.j2 with Jinja2 (autoescaping on).
 
 Refined runs (settings.refine): the headline numbers of a refined molecule are composite free energies,
 a DFT single point on the GFN2-xTB minimum plus the GFN2-xTB thermal correction, written

@@ -13,7 +13,7 @@ import jinja2
 from markupsafe import Markup
 
 from .. import fileio
-from . import figures
+from . import figures, views3d
 from .filters import FILTERS, fmt_kcal, missing, num, orientation_words, plain, same_t, truthy
 from .model import GFN2_TAG, REFINED_TAG, Entry, Molecule, Run, dft_level, dft_words, read_run
 
@@ -203,6 +203,19 @@ def plots(m: Molecule) -> list[dict]:
     return out
 
 
+def structures_3d(m: Molecule) -> dict:
+    """The 3-D views of the molecule's leading conformers (views3d.drawings) with their SVG as trusted
+    markup: {'drawings', 't'[, 'missing']}, {'error': text} when they cannot be drawn, {} when there is
+    nothing to draw (a failed molecule, no counted conformer)."""
+    try:
+        res = views3d.drawings(m)
+    except Exception as exc:      # a broken geometry must not stop the page
+        return {"error": f"{type(exc).__name__}: {exc}"}
+    for d in res.get("drawings", []):
+        d.views = {k: Markup(v) for k, v in d.views.items()}
+    return res
+
+
 # ------------------------------------------------------------------------------------------ rendering
 
 def _finalize(value):
@@ -234,7 +247,8 @@ def environment() -> jinja2.Environment:
         provenance_pairs=provenance_pairs, refine_view=refine_view, group_fragments=group_fragments,
         seed_failures=seed_failures, has_dft_column=has_dft_column, n_not_counted=n_not_counted,
         additive_terms=additive_terms, refine_rows_by_id=refine_rows_by_id,
-        depiction=depiction, plots=plots, relative_stereo=_relative_stereo)
+        depiction=depiction, plots=plots, structures_3d=structures_3d, relative_stereo=_relative_stereo,
+        TILT_DEG=views3d.TILT_DEG)
     return env
 
 
