@@ -120,3 +120,32 @@ def dihedral(p0, p1, p2, p3) -> float:
     v = b0 - (b0 @ b1n) * b1n
     w = b2 - (b2 @ b1n) * b1n
     return math.degrees(math.atan2(float(np.cross(b1n, v) @ w), float(v @ w)))
+
+
+#: Å and degrees: an intramolecular hydrogen bond D-H...A (D, A = N or O) has H...A at most HBOND_MAX_HA
+#: and the D-H...A angle at least HBOND_MIN_ANGLE. A permissive geometric criterion (common practice for
+#: weak hydrogen bonds): it counts the bent contacts of vicinal diols (H...O 2.2-2.4 Å at about 110 deg
+#: in a glucopyranoside's O-H...O chain, measured here on MMFF94 seeds), which a 120-deg cut would miss
+HBOND_MAX_HA = 2.5
+HBOND_MIN_ANGLE = 100.0
+
+
+def intramolecular_hbonds(mol, positions) -> list[tuple[int, int, int]]:
+    """(donor, H, acceptor) of every intramolecular N/O-H...N/O hydrogen bond of one structure by the
+    geometric criterion above; the acceptor is neither the donor nor bonded to it."""
+    x = np.asarray(positions, dtype=float)
+    polar = [a.GetIdx() for a in mol.GetAtoms() if a.GetSymbol() in ("N", "O")]
+    out = []
+    for d in polar:
+        for h in [n.GetIdx() for n in mol.GetAtomWithIdx(d).GetNeighbors() if n.GetAtomicNum() == 1]:
+            for a in polar:
+                if a == d or mol.GetBondBetweenAtoms(a, d) is not None:
+                    continue
+                ha = float(np.linalg.norm(x[a] - x[h]))
+                if ha > HBOND_MAX_HA:
+                    continue
+                u, v = x[d] - x[h], x[a] - x[h]
+                ang = math.degrees(math.acos(max(-1.0, min(1.0, float(u @ v) / (np.linalg.norm(u) * np.linalg.norm(v))))))
+                if ang >= HBOND_MIN_ANGLE:
+                    out.append((d, h, a))
+    return out

@@ -117,7 +117,95 @@ def set_torsions(mol, positions, rotors, values, decimals: int) -> np.ndarray:
     return np.round(np.array(conf.GetPositions()), decimals)
 
 
-def enumerate_rotamers(mol, base, base_positions, rotors, settings, relax, same, decimals: int) -> list:
+def _ring_index(mol, ring, atom) -> int | None:
+    """Index in `ring` of the ring atom nearest `atom` through the bonds (the atom itself if in the ring)."""
+    if atom in ring:
+        return ring.index(atom)
+    best = None
+    for k, r in enumerate(ring):
+        path = Chem.GetShortestPath(mol, int(atom), int(r))
+        if path and (best is None or len(path) < best[0]):
+            best = (len(path), k)
+    return None if best is None else best[1]
+
+
+def hbond_chain_starts(mol, positions, rotors, grids, ring, decimals: int) -> list[tuple[str, tuple]]:
+    """Starts that point every hydroxy H at the next oxygen around the ring, once in each direction
+    ('ring order +1' and '-1'): the cooperative O-H...O chains of a carbohydrate or polyol, which an evenly
+    spaced subset of a large torsion grid almost never contains. A rotor counts as hydroxy when its outer
+    atom is an O carrying one H (its dihedral ends on that H); its acceptor is the oxygen (a ring O, a
+    hydroxy or ether O of a group) nearest in space among those anchored on the next ring position in that
+    direction (or the one after). Each hydroxy rotor takes the grid value that brings H closest to its
+    acceptor; the other rotors keep their first grid value. Returns [(label, torsion tuple)], without
+    duplicates; [] when the molecule has fewer than two hydroxy rotors or no ring order is known."""
+    if ring is None or len(rotors) == 0:
+        return []
+    ring = [int(r) for r in ring]
+    n = len(ring)
+    oh = []
+    for idx, (i, a, b, j) in enumerate(rotors):
+        B = mol.GetAtomWithIdx(b)
+        hs = [x.GetIdx() for x in B.GetNeighbors() if x.GetAtomicNum() == 1]
+        if B.GetSymbol() == "O" and len(hs) == 1 and j == hs[0]:
+            oh.append(idx)
+    if len(oh) < 2:
+        return []
+    oxygens = [a.GetIdx() for a in mol.GetAtoms() if a.GetSymbol() == "O"]
+    anchor = {o: _ring_index(mol, ring, o) for o in oxygens}
+    X = np.asarray(positions, dtype=float)
+    out, seen = [], set()
+    for d in (1, -1):
+        values = [g[0] for g in grids]
+        for idx in oh:
+            i, a, b, j = rotors[idx]
+            k = anchor.get(b)
+            if k is None:
+                continue
+            acceptors = []
+            for step in (d, 2 * d):
+                acceptors = [o for o in oxygens if o != b and anchor.get(o) == (k + step) % n]
+                if acceptors:
+                    break
+            if not acceptors:
+                continue
+            acc = min(acceptors, key=lambda o: float(np.linalg.norm(X[o] - X[b])))
+            best = None
+            for v in grids[idx]:
+                Y = set_torsions(mol, X, [rotors[idx]], [v], decimals)
+                dist = float(np.linalg.norm(Y[j] - Y[acc]))
+                if best is None or dist < best[0]:
+                    best = (dist, v)
+            values[idx] = best[1]
+        key = tuple(values)
+        if key not in seen:
+            seen.add(key)
+            out.append((f"hydrogen-bond chain, ring order {'+1' if d > 0 else '-1'}", key))
+    return out
+
+
+def coverage(reasons) -> dict | None:
+    """{'starts', 'grid', 'chains'} of one molecule's rotor sampling per ring-level form (the largest form),
+    read from its seeds' reasons ('start 3 of 216 (evenly spaced subset of 2187 grid points)'); None when
+    no rotamer was enumerated."""
+    import re
+    best = None
+    chains = 0
+    for text in reasons:
+        m = re.search(r"start \d+ of (\d+)(?: \(evenly spaced subset of (\d+) grid points\))?", str(text))
+        if m:
+            starts = int(m.group(1))
+            grid = int(m.group(2)) if m.group(2) else starts
+            if best is None or grid > best[1]:
+                best = (starts, grid)
+        if "hydrogen-bond chain" in str(text):
+            chains = 2
+    if best is None:
+        return None
+    return {"starts": best[0], "grid": best[1], "chains": chains}
+
+
+def enumerate_rotamers(mol, base, base_positions, rotors, settings, relax, same, decimals: int,
+                       ring=None) -> list:
     """The rotamers of one ring-level form, in start order: kept, merged, failed and screened.
 
     base: the seed of the form (a chairqm.seeds.Seed; its name, template and forcefield are inherited);
@@ -131,6 +219,12 @@ def enumerate_rotamers(mol, base, base_positions, rotors, settings, relax, same,
     grids = [rotor_grid(mol, a, b) for (_, a, b, _) in rotors]
     cap = settings["max_rotamer_starts"]
     starts, total = start_torsions(grids, cap)
+    chains = hbond_chain_starts(mol, base_positions, rotors, grids, ring, decimals)
+    labels = {}
+    for label, values in chains:
+        if values not in starts:
+            starts.insert(len(labels), values)        # first, so that no cap or window order loses them
+        labels[values] = label
     width = max(2, len(str(len(starts))))
     subset = f" (evenly spaced subset of {total} grid points)" if total > cap else ""
     seeds: list = []
@@ -139,7 +233,7 @@ def enumerate_rotamers(mol, base, base_positions, rotors, settings, relax, same,
         s = type(base)(name=f"{base.name}-r{n + 1:0{width}d}", template=base.template, forcefield=base.forcefield)
         X0 = set_torsions(mol, base_positions, rotors, values, decimals)
         notes = [f"start {n + 1} of {len(starts)}{subset}: torsions "
-                 + ",".join(f"{v:g}" for v in values)]
+                 + ",".join(f"{v:g}" for v in values) + (f" ({labels[values]})" if values in labels else "")]
         more, mismatch = relax(s, X0)
         notes += more
         if mismatch:

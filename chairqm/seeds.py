@@ -607,7 +607,7 @@ def build_seeds(mol, ring, substituents, settings=None, other_rings=()) -> list[
                 out.append(s_io)
                 continue
             out.extend(rotamers.enumerate_rotamers(ctx.mol, s_io, Xr, rotors, settings, relax, same_rotamer,
-                                                   DECIMALS_START))
+                                                   DECIMALS_START, ring=ctx.ring))
         if built:
             kept_skeletons.append((name, tpl.form, S))
 

@@ -99,6 +99,10 @@ class Entry:
     low: float | None
     high: float | None
     unrefined: Unrefined | None
+    same_method_dg: float | None = None       # additive gap from the run's own A-values
+    interaction: float | None = None          # chair gap minus same_method_dg
+    interaction_u: float | None = None        # its 95 % half-width
+    note: str = ""                            # the ensemble stage's notes (symmetry, lock, rotor coverage)
 
 
 @dataclass
@@ -289,7 +293,11 @@ def _entry(ens_all: dict, rows: list[dict], t) -> Entry:
         calibrated=num(row.get("calibrated_kcal")),
         low=num(row.get("interval_low_kcal")),
         high=num(row.get("interval_high_kcal")),
-        unrefined=_unrefined(un, row))
+        unrefined=_unrefined(un, row),
+        same_method_dg=num((ens.get("same_method") or {}).get("dg_kcal")),
+        interaction=num((ens.get("same_method") or {}).get("interaction_kcal")),
+        interaction_u=num((ens.get("same_method") or {}).get("uncertainty_kcal")),
+        note=str(ens.get("note") or ""))
 
 
 def read_molecule(out: Path, name: str, summary_rows: list[dict]) -> Molecule:

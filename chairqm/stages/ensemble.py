@@ -324,6 +324,7 @@ def run(cfg, plan, name, threads=1):
         for row in out["temperatures"]:
             row["flag"] = True
             row["flag_reason"] = "; ".join(x for x in (row["flag_reason"], why) if x)
+    _medium_and_coverage(p, settings, folder, usable, out)
     _store_reference(p, settings, out)
     fam_cols = tables.families(settings)
     fams = pd.concat(fam_frames, ignore_index=True) if fam_frames else tables.frame([], fam_cols)
@@ -332,6 +333,49 @@ def run(cfg, plan, name, threads=1):
     fileio.write_csv(folder / "conformers.csv", conf_df)
     write_sdf(folder / "conformers.sdf", p, confs, temps[0], conf_df)
     fileio.write_json(folder / "ensemble.json", out)
+
+
+#: intramolecular hydrogen bonds in the leading gas-phase conformer from which the result is said to rest
+#: on them (a chain of two or more: the cooperative O-H...O networks of polyols and sugars)
+HBOND_CHAIN_MIN = 2
+
+
+def _medium_and_coverage(p, settings, folder, usable, out):
+    """Two statements a result needs beside its numbers: how much of the rotor space the seeds covered
+    (chairqm.rotamers.coverage, from seeds.csv), and, in the gas phase, whether the leading conformer
+    rests on a chain of intramolecular hydrogen bonds, which a solvent would compete with (flagged)."""
+    import pandas as pd
+
+    from .. import chem as cq_chem
+    from .. import rotamers as cq_rot
+    seeds_csv = folder / "seeds.csv"
+    cov = None
+    if seeds_csv.is_file():
+        cov = cq_rot.coverage(pd.read_csv(seeds_csv, keep_default_na=False)["reason"].tolist())
+    if cov is not None:
+        out["rotor_coverage"] = cov
+        text = (f"rotor space: {cov['starts']} of {cov['grid']} torsion-grid starts per ring form "
+                f"({100.0 * cov['starts'] / cov['grid']:.0f} %)"
+                + (", including both hydrogen-bond chains" if cov["chains"] else "")
+                + ("; raise seeds.max_rotamer_starts to cover more" if cov["starts"] < cov["grid"] else ""))
+        for row in out["temperatures"]:
+            row["note"] = "; ".join(x for x in (row.get("note", ""), text) if x)
+    if settings.get("solvent") not in (None, "", {}) or out.get("status") != "ok" or not out["temperatures"]:
+        return
+    t0 = out["temperatures"][0]["temperature_k"]
+    cands = [c for c in usable if c.g(t0) is not None]
+    if not cands:
+        return
+    lead = min(cands, key=lambda c: c.g(t0))
+    bonds = cq_chem.intramolecular_hbonds(p.mol, lead["atoms"].positions)
+    out["leading_hydrogen_bonds"] = [list(map(int, b)) for b in bonds]
+    if len(bonds) >= HBOND_CHAIN_MIN:
+        why = (f"gas phase: the leading conformer {lead['conformer']} holds {len(bonds)} intramolecular hydrogen "
+               "bonds; in solution the medium competes with them and may change the answer — run with a "
+               "solvent (settings.solvent, e.g. ALPB water or chloroform) before relying on it")
+        for row in out["temperatures"]:
+            row["flag"] = True
+            row["flag_reason"] = "; ".join(x for x in (row["flag_reason"], why) if x)
 
 
 def _store_reference(p, settings, out):

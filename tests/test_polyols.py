@@ -1,0 +1,64 @@
+"""Sugars and polyols: hydrogen-bond chains seeded on purpose, rotor coverage stated, the medium warned about.
+
+A glucopyranoside's hydroxy groups can form a cooperative O-H...O chain around the ring in either
+direction (textbook carbohydrate conformational analysis); an evenly spaced subset of a 3^n torsion grid
+almost never contains it, so chairqm seeds both chains first in every ring form.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from chairqm import chem, rotamers, seeds
+from chairqm.molecule import perceive
+
+ME_BETA_GLC = "CO[C@@H]1O[C@H](CO)[C@@H](O)[C@H](O)[C@H]1O"     # methyl beta-D-glucopyranoside
+
+
+@pytest.fixture(scope="module")
+def glc_seeds():
+    p = perceive({"name": "glc", "smiles": ME_BETA_GLC})[0]
+    found = seeds.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False, "max_rotamer_starts": 4},
+                              p.other_rings)
+    return p, found
+
+
+def test_the_glucoside_is_all_equatorial_in_one_chair_and_all_axial_in_the_other(glc_seeds):
+    # beta-D-glucopyranoside: every substituent equatorial in the 4C1 chair (textbook)
+    _, found = glc_seeds
+    forms = {s.orientation for s in found if s.kept and s.ring_form == "chair"}
+    assert "s1=equatorial;s2=equatorial;s3=equatorial;s4=equatorial;s5=equatorial" in forms
+    assert "s1=axial;s2=axial;s3=axial;s4=axial;s5=axial" in forms
+
+
+def test_both_hydrogen_bond_chains_are_seeded_first_in_each_chair(glc_seeds):
+    _, found = glc_seeds
+    for chair in ("chair-1", "chair-2"):
+        mine = [s for s in found if s.template == chair and s.name.startswith(chair + "-r")]
+        labels = [s.reason for s in mine[:2]]
+        assert "ring order +1" in labels[0] and "ring order -1" in labels[1], labels
+
+
+def test_a_chain_start_relaxes_into_a_chain_of_contacts(glc_seeds):
+    p, found = glc_seeds
+    chain = next(s for s in found if s.template == "chair-1" and "ring order +1" in s.reason)
+    bonds = chem.intramolecular_hbonds(p.mol, chain.positions)
+    # four hydroxy groups, each pointing at the next oxygen round the ring: at least three contacts
+    assert len(bonds) >= 3, bonds
+    donors = {d for d, _, _ in bonds}
+    assert len(donors) == len(bonds)                      # one contact per hydroxy: a chain, not a fan
+
+
+def test_one_hydroxy_group_makes_no_chain():
+    p = perceive({"name": "chol", "smiles": "O[C@H]1CC[C@@H](C)CC1"})[0]
+    found = seeds.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
+    assert not [s for s in found if "hydrogen-bond chain" in s.reason]
+
+
+def test_coverage_is_read_from_the_seed_reasons():
+    reasons = ["start 1 of 218 (evenly spaced subset of 729 grid points): torsions 60,60 (hydrogen-bond chain, "
+               "ring order +1)", "start 2 of 218 (evenly spaced subset of 729 grid points): torsions 60,180",
+               "symmetry-equivalent of chair-1"]
+    assert rotamers.coverage(reasons) == {"starts": 218, "grid": 729, "chains": 2}
+    assert rotamers.coverage(["start 1 of 3: torsions 60"]) == {"starts": 3, "grid": 3, "chains": 0}
+    assert rotamers.coverage(["no rotors"]) is None
