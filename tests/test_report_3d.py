@@ -254,3 +254,12 @@ def test_the_page_with_3d_views_requests_nothing_in_a_browser(run, tmp_path):
     # the parsed DOM holds both views of three conformers per molecule, with their balls
     assert len(re.findall(r'<svg[^>]*class="m3 ', dom)) == 2 * sum(len(v) for v in EXPECTED.values())
     assert len(re.findall(r"<circle ", dom)) > 12 * 2 * 6
+
+
+def test_without_a_second_chair_no_partner_is_drawn_and_the_page_says_so(tmp_path):
+    out = tmp_path / "run"
+    table = {k: v for k, v in SPECS[0][2].items() if k != ("chair", "s1=axial")}
+    _write_molecule(out, "methylcyclohexane", "CC1CCCCC1", table)
+    text = write_report(out, RUN_INFO).read_text(encoding="utf-8")
+    assert list(_figures(_articles(text)["methylcyclohexane"])) == ["c002", "c005"]
+    assert "so no ring-flip partner is drawn" in text

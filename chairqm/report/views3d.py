@@ -42,7 +42,8 @@ TILT_DEG = 20.0              # edge-on views are raised this far above the ring'
 AZIMUTH_DEG = 25.0           # and turned this far about its normal, so that front and back atoms separate
 MAX_VIEWS = 4                # conformers drawn per molecule
 POPULATED_SHARE = 0.10       # other families drawn when they hold at least this population
-MARGIN = 16.0                # px around the drawing (labels need room)
+MARGIN = 10.0                # px around the drawing and its labels
+LABEL_CHAR_PX = 7.0          # width of a label character (12 px bold sans-serif), for the drawing's extent
 
 # ball radii in Å (drawing sizes only, about a third of the van der Waals radius); others: DEFAULT_RADIUS
 RADIUS = {"H": 0.17, "C": 0.30, "N": 0.29, "O": 0.28, "F": 0.27, "Si": 0.36, "P": 0.35, "S": 0.36,
@@ -213,7 +214,9 @@ def leading_conformers(m, t) -> list[Pick]:
     others = [f for f in fams if f.get("ring_form") != "chair"]
     others.sort(key=lambda f: (f.get("ring_form") != "twist-boat", num(f.get("g_rel_kcal"))))
     if others:
-        take("nonchair", _key(others[0]), ROLE_WORDS["nonchair"].format(form=others[0].get("ring_form") or "other form"))
+        form = others[0].get("ring_form") or "other"
+        take("nonchair", _key(others[0]), ROLE_WORDS["nonchair"].format(
+            form=form if form != "other" else "non-chair form"))
     for f in fams:
         if (num(f.get("population")) or 0.0) >= POPULATED_SHARE:
             take("populated", _key(f))
@@ -283,8 +286,9 @@ def _bond_paths(a, b, order: float, gap: float = 3.0) -> str:
 
 
 def view_svg(structure, ring, marks, form_class: str, fr: Frame, view: str, label: str,
-             shown=None, box=None) -> str:
-    """One view as SVG text. `marks`: measured_marks(); `form_class`: CSS class of the ring form;
+             shown=None, box=None, groups=None) -> str:
+    """One view as SVG text. `marks`: measured_marks(); `groups`: group id -> its atoms (the label goes
+    beyond them); `form_class`: CSS class of the ring form;
     `label`: the accessible name (escaped here); `box`: (xmin, ymin, xmax, ymax) in px to share a
     viewBox between views, else the drawing's own extent."""
     symbols = structure.symbols
@@ -317,27 +321,31 @@ def view_svg(structure, ring, marks, form_class: str, fr: Frame, view: str, labe
         items.append((p[i, 2], 1, f'<circle cx="{_f(p[i, 0])}" cy="{_f(p[i, 1])}" r="{r:.0f}" '
                                    f'class="{cls}" data-a="{i}"/>'))
     items.sort(key=lambda it: (it[0], it[1]))
-    texts = []
+    texts, boxes = [], []
     for fa, sid in sorted(ids_of.items(), key=lambda kv: kv[1]):
         ra, how = first_of[fa]
         if fa not in visible:
             continue
         d = p[fa, :2] - p[ra, :2]
         full = float(np.linalg.norm(np.asarray(structure.positions[fa]) - np.asarray(structure.positions[ra]))) * SCALE
-        r_fa = RADIUS.get(symbols[fa], DEFAULT_RADIUS) * SCALE
         if float(np.hypot(*d)) < 0.5 * full:           # a bond seen nearly end-on: write outwards from the ring
             d = p[ra, :2] - p[sorted(ring_set), :2].mean(axis=0)
-            d = d / max(float(np.hypot(*d)), 1e-6)
-            at = p[ra, :2] + d * (RADIUS.get(symbols[ra], DEFAULT_RADIUS) * SCALE + 2 * r_fa + 6)
-        else:
-            d = d / float(np.hypot(*d))
-            at = p[fa, :2] + d * (r_fa + 8)
+        d = d / max(float(np.hypot(*d)), 1e-6)
+        # beyond the group's farthest drawn atom along that direction, so the text never lies on the group
+        group = [i for i in (groups or {}).get(sid, [fa]) if i in visible and i not in ring_set] or [fa]
+        reach = max(float((p[i, :2] - p[ra, :2]) @ d) + RADIUS.get(symbols[i], DEFAULT_RADIUS) * SCALE for i in group)
+        at = p[ra, :2] + d * (max(reach, RADIUS.get(symbols[ra], DEFAULT_RADIUS) * SCALE) + 7)
         anchor = "start" if d[0] > 0.3 else "end" if d[0] < -0.3 else "middle"
         cls, short = MARKS.get(how, ("iso", how))
-        texts.append(f'<text x="{_f(at[0])}" y="{_f(at[1] + 4)}" text-anchor="{anchor}" class="t {cls}">'
-                     f'{html.escape(sid)} {html.escape(short)}</text>')
+        text = f"{sid} {short}"
+        width = LABEL_CHAR_PX * len(text)
+        left = at[0] if anchor == "start" else at[0] - width if anchor == "end" else at[0] - width / 2
+        y = at[1] + 4 + (6 if d[1] > 0.7 else -4 if d[1] < -0.7 else 0)      # above or below a vertical bond
+        boxes.append((left, y - 11, left + width, y + 3))
+        texts.append(f'<text x="{_f(at[0])}" y="{_f(y)}" text-anchor="{anchor}" class="t {cls}">'
+                     f'{html.escape(text)}</text>')
     if box is None:
-        box = extent(p[shown], [symbols[i] for i in shown])
+        box = extent(p[shown], [symbols[i] for i in shown], boxes)
     x0, y0, x1, y1 = box
     body = "".join(t for _, _, t in items) + "".join(texts)
     name = html.escape(label, quote=True)
@@ -346,13 +354,13 @@ def view_svg(structure, ring, marks, form_class: str, fr: Frame, view: str, labe
             f'height="{_f(y1 - y0)}">{body}</svg>')
 
 
-def extent(p, symbols) -> tuple[float, float, float, float]:
-    """(xmin, ymin, xmax, ymax) in px of projected atoms with their balls, plus MARGIN (and room for labels
-    at the sides)."""
+def extent(p, symbols, boxes=()) -> tuple[float, float, float, float]:
+    """(xmin, ymin, xmax, ymax) in px of projected atoms with their balls and of the label boxes
+    (xmin, ymin, xmax, ymax), plus MARGIN."""
     r = np.array([RADIUS.get(el, DEFAULT_RADIUS) * SCALE for el in symbols])
-    side = MARGIN + 34.0
-    return (float((p[:, 0] - r).min() - side), float((p[:, 1] - r).min() - MARGIN),
-            float((p[:, 0] + r).max() + side), float((p[:, 1] + r).max() + MARGIN))
+    xs = [float((p[:, 0] - r).min()), float((p[:, 0] + r).max())] + [v for b in boxes for v in (b[0], b[2])]
+    ys = [float((p[:, 1] - r).min()), float((p[:, 1] + r).max())] + [v for b in boxes for v in (b[1], b[3])]
+    return (min(xs) - MARGIN, min(ys) - MARGIN, max(xs) + MARGIN, max(ys) + MARGIN)
 
 
 def form_class(form: str) -> str:
@@ -383,7 +391,8 @@ def draw(m, st: Structure, pick: Pick, trigonal=()) -> Drawing:
     for view, how in (("side", f"seen edge-on, {TILT_DEG:.0f}° above the ring's mean plane"),
                       ("top", "seen from above the ring's mean plane")):
         label = f"Conformer {cid} ({pick.words}: {d.ring_form}, {text_orient}), {how}"
-        d.views[view] = view_svg(st, ring, marks, form_class(d.ring_form), fr, view, label, shown)
+        d.views[view] = view_svg(st, ring, marks, form_class(d.ring_form), fr, view, label, shown,
+                                 groups={str(g["id"]): [int(i) for i in g.get("atoms") or []] for g in subs})
     return d
 
 
@@ -416,6 +425,8 @@ def drawings(m) -> dict:
             continue
         out.append(draw(m, structures[cid], pk, tri))
     res = {"drawings": out, "t": m.lead}
+    if any(pk.role == "best" for pk in picks) and not any(pk.role == "partner" for pk in picks):
+        res["no_partner"] = True      # said on the page: the other chair is not among the counted conformers
     if missing_ids:
         res["missing"] = ", ".join(missing_ids)
     return res
