@@ -322,17 +322,19 @@ def view_svg(structure, ring, marks, form_class: str, fr: Frame, view: str, labe
                                    f'class="{cls}" data-a="{i}"/>'))
     items.sort(key=lambda it: (it[0], it[1]))
     texts, boxes = [], []
+    pairs = [(i, j) for i, j, _ in bonds] + [(j, i) for i, j, _ in bonds]
     for fa, sid in sorted(ids_of.items(), key=lambda kv: kv[1]):
         ra, how = first_of[fa]
         if fa not in visible:
             continue
         d = p[fa, :2] - p[ra, :2]
         full = float(np.linalg.norm(np.asarray(structure.positions[fa]) - np.asarray(structure.positions[ra]))) * SCALE
-        if float(np.hypot(*d)) < 0.5 * full:           # a bond seen nearly end-on: write outwards from the ring
-            d = p[ra, :2] - p[sorted(ring_set), :2].mean(axis=0)
+        group = [i for i in (groups or {}).get(sid, [fa]) if i in visible and i not in ring_set] or [fa]
+        if float(np.hypot(*d)) < 0.5 * full:           # a bond seen nearly end-on: write outwards from the ring,
+            d = p[ra, :2] - p[sorted(ring_set), :2].mean(axis=0)     # past the ring atom's other exocyclic atom
+            group += [j for i, j in pairs if i == ra and j in visible and j not in ring_set]
         d = d / max(float(np.hypot(*d)), 1e-6)
         # beyond the group's farthest drawn atom along that direction, so the text never lies on the group
-        group = [i for i in (groups or {}).get(sid, [fa]) if i in visible and i not in ring_set] or [fa]
         reach = max(float((p[i, :2] - p[ra, :2]) @ d) + RADIUS.get(symbols[i], DEFAULT_RADIUS) * SCALE for i in group)
         at = p[ra, :2] + d * (max(reach, RADIUS.get(symbols[ra], DEFAULT_RADIUS) * SCALE) + 7)
         anchor = "start" if d[0] > 0.3 else "end" if d[0] < -0.3 else "middle"
