@@ -2,10 +2,40 @@
 
 An A-value is the free-energy difference G(axial) − G(equatorial) of a monosubstituted cyclohexane,
 in kcal/mol (E. L. Eliel and S. H. Wilen, Stereochemistry of Organic Compounds, Wiley 1994, ch. 11).
-The table `chairqm/data/avalues.csv` has one row per group with the columns in `COLUMNS`; every value
-carries its published source, and `from_memory` is true for values recalled rather than read off the
-document. Groups are keyed by their canonical fragment SMILES with the attachment point written
-'[*]' first (e.g. '[*]C(F)(F)F'), the same canonical form the intake stage gives each substituent.
+The table `chairqm/data/avalues.csv` has one row per group with the columns in `COLUMNS`. Groups are
+keyed by their canonical fragment SMILES with the attachment point written '[*]' first (e.g.
+'[*]C(F)(F)F'), the same canonical form the intake stage gives each substituent.
+
+Where the values come from. The table is built by `benchmarks/build_avalue_table.py` from a published
+compilation of experimental A-values (H. J. Reich's table "Conformational Energies (A-Values)", as
+transcribed in the project's shared data, with every value printed, its conditions and the original
+references as the compilation prints them); nothing reads the compilation at run time. Per group:
+
+- ``a_value_kcal``: the first value the compilation prints with an original reference (mostly direct
+  low-temperature NMR: Jensen, Bushweller and Beck 1969; Schneider and Hoppen 1978; ...); only where
+  there is none, the compilation's first single value, which comes from its general references (Hirsch
+  1967, Jensen and Bushweller 1971, Eliel and Wilen, Eliel, Wilen and Doyle 2001) and names no method,
+  solvent or temperature. Those older values are often lower (F 0.15 against 0.28 and 0.36), so the
+  rule prefers the attributed measurement. ``compilation_value_kcal`` keeps the compilation's own
+  headline; ``range_low_kcal``/``range_high_kcal`` span every value it prints; ``conditions`` and
+  ``references`` hold its text verbatim; ``source`` is the reference of the value used.
+- Temperature: ``temperature_k`` only where a temperature is printed (the O-SiR3 values, 200 K in
+  CD2Cl2); ``temperature_low_k``/``temperature_high_k`` give the 170–200 K band the compilation states for
+  its direct low-temperature NMR values, so a comparison can be made there instead of at 298 K; empty
+  when the method is not stated.
+- ``from_memory`` is false for every compilation value. The one value kept from elsewhere is tert-butyl
+  4.9 (Eliel and Wilen 1994, recalled, ``from_memory`` true): the compilation prints only "> 4.5" and the
+  additive estimate and the calibration need a number; its range starts at the compilation's bound.
+- Ambiguities, as the compilation's notes say: SMe 1.07 and 1.1 carry the same reference key (1.07, the
+  first, is used); NH2's first entry is a range (1.23, the next single value, is used); Br 0.49 (ref 9)
+  sits behind a malformed tag (kept in the range); the O-SiR3 ref-10 values are probably Marzabadi et al.
+  2003; Hirsch's table is printed as volume 3 (volume 1 is likely). Each row's ``note`` says which apply.
+- Left out: carbodiimido (the compilation does not say what R is), silyl (from a teaching table without
+  a reference), trimethylphosphonio and dimethylthiophosphoryl (lower bounds only). Ethoxycarbonyl and
+  cyclopropyl are not in the compilation and are not tabulated (the run computes them).
+- Charged groups (carboxylate, ammonio, thiolate) stay in the table for reference; the additive model
+  treats charged groups as outside the model. Isotope-labelled rows (D, T, OCD3) can never match a run,
+  which refuses isotope labels; they are kept as printed.
 """
 
 from __future__ import annotations
@@ -20,7 +50,12 @@ from .errors import ChairqmError
 
 TABLE_FILE = "avalues.csv"
 COLUMNS = ["group", "fragment", "a_value_kcal", "range_low_kcal", "range_high_kcal", "temperature_k",
-           "solvent", "method", "source", "from_memory", "note"]
+           "temperature_low_k", "temperature_high_k", "solvent", "method", "source", "from_memory", "note",
+           "compilation_value_kcal", "conditions", "references", "compilation"]
+TEXT_COLUMNS = ("group", "fragment", "solvent", "method", "source", "note", "conditions", "references",
+                "compilation")
+NUMBER_COLUMNS = ("a_value_kcal", "range_low_kcal", "range_high_kcal", "temperature_k", "temperature_low_k",
+                  "temperature_high_k", "compilation_value_kcal")
 
 
 def canonical_fragment(smiles: str) -> str:
@@ -41,15 +76,15 @@ def canonical_fragment(smiles: str) -> str:
 @functools.lru_cache(maxsize=1)
 def _read_table() -> pd.DataFrame:
     text = resources.files("chairqm").joinpath("data", TABLE_FILE).read_text(encoding="utf-8")
-    df = pd.read_csv(io.StringIO(text), dtype={"group": str, "fragment": str, "solvent": str,
-                                               "method": str, "source": str, "note": str})
+    # comment=None (the default): SMILES hold '#', which must never start a comment
+    df = pd.read_csv(io.StringIO(text), dtype={c: str for c in TEXT_COLUMNS})
     missing = [c for c in COLUMNS if c not in df.columns]
     if missing:
         raise RuntimeError(f"packaged A-value table lacks columns {missing}")
     df = df[COLUMNS].copy()
-    for c in ("solvent", "method", "note"):
+    for c in ("solvent", "method", "note", "conditions", "references", "compilation"):
         df[c] = df[c].fillna("")
-    for c in ("a_value_kcal", "range_low_kcal", "range_high_kcal", "temperature_k"):
+    for c in NUMBER_COLUMNS:
         df[c] = df[c].astype(float)
     df["from_memory"] = df["from_memory"].map(
         lambda v: v if isinstance(v, bool) else str(v).strip().lower() == "true").astype(bool)
@@ -60,7 +95,7 @@ def _read_table() -> pd.DataFrame:
 
 
 def load_table() -> pd.DataFrame:
-    """The packaged A-value table as a new DataFrame (columns `COLUMNS`; kcal/mol; temperature_k NaN if unknown)."""
+    """The packaged A-value table as a new DataFrame (columns `COLUMNS`; kcal/mol; temperatures NaN if not stated)."""
     return _read_table().copy()
 
 

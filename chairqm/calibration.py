@@ -399,7 +399,8 @@ def calibrate_run(out_dir, config, temperature_k: float = REFERENCE_TEMPERATURE_
                   for p in points]
     cfg_name = Path(cfg["_config_path"]).name if cfg.get("_config_path") else "a reference configuration"
     cal.note = (f"fitted on {cal.n} monosubstituted cyclohexanes of {cfg_name}"
-                f" at {temperature_k:g} K; experimental values from chairqm/data/avalues.csv (from memory)")
+                f" at {temperature_k:g} K; experimental values from chairqm/data/avalues.csv"
+                f" (published compilation; {sum(bool(p['from_memory']) for p in used)} of them from memory)")
     return cal
 
 

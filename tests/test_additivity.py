@@ -15,8 +15,8 @@ RING = [0, 1, 2, 3, 4, 5]
 CARBON = ["C"] * 6
 R = 8.314462618 / 4184.0          # CODATA 2018, kcal/(mol K)
 T = 298.15
-A_ME = 1.74                       # Booth and Everett, J. Chem. Soc., Perkin Trans. 2 1980, 255 (from memory)
-A_TBU = 4.9                       # Eliel and Wilen 1994, Table 11.7 (from memory)
+A_ME = 1.70                       # package table: Reich's A-value compilation, general references (Hirsch 1967; Eliel and Wilen)
+A_TBU = 4.9                       # package table: Eliel and Wilen 1994, Table 11.7 (from memory; the compilation prints > 4.5)
 
 
 def est(subs, a, b, elements=CARBON, qm=None):
@@ -24,25 +24,24 @@ def est(subs, a, b, elements=CARBON, qm=None):
 
 
 def test_trans_1_4_dimethyl():
-    # e,e vs a,a: 2 x 1.74 = 3.48 kcal/mol (Booth and Everett 1980 methyl value)
+    # e,e vs a,a: 2 x 1.70 = 3.40 kcal/mol (the package table's methyl value)
     e = est([S("s1", 0, "[*]C"), S("s2", 3, "[*]C")], "s1=axial;s2=axial", "s1=equatorial;s2=equatorial")
     assert e.source == "tabulated"
     assert e.dg_kcal == pytest.approx(2 * A_ME)
     assert e.preferred_axial == "" and e.preferred_orientation == "s1=equatorial;s2=equatorial"
     assert sum(v for _, v in e.terms) == pytest.approx(e.dg_kcal)
-    assert e.tabulated_dg_kcal == pytest.approx(3.48) and e.qm_dg_kcal is None
+    assert e.tabulated_dg_kcal == pytest.approx(3.40) and e.qm_dg_kcal is None
 
 
 def test_cis_1_tert_butyl_4_methyl():
-    # A(tBu) - A(Me) = 4.9 - 1.74 = 3.16 kcal/mol with the table values (textbook 4.9 - 1.7 = 3.2,
-    # "about 99.5 % tBu equatorial", common practice). Population by hand for 3.16 kcal/mol:
-    #   3.16 / (1.9872043e-3 * 298.15) = 5.333470, exp(-5.333470) = 0.0048273, 1 / 1.0048273 = 0.995196
-    # and for the textbook 3.2: exp(-5.400984) = 0.0045122, 1 / 1.0045122 = 0.995508
+    # A(tBu) - A(Me) = 4.9 - 1.70 = 3.20 kcal/mol with the table values (the textbook 4.9 - 1.7 = 3.2,
+    # "about 99.5 % tBu equatorial", common practice). Population by hand for 3.2 kcal/mol:
+    #   3.2 / (1.9872043e-3 * 298.15) = 5.400984, exp(-5.400984) = 0.0045122, 1 / 1.0045122 = 0.995508
     e = est([S("s1", 0, "[*]C(C)(C)C"), S("s2", 3, "[*]C")], "s1=axial;s2=equatorial", "s1=equatorial;s2=axial")
     assert e.dg_kcal == pytest.approx(A_TBU - A_ME)
     assert e.preferred_orientation == "s1=equatorial;s2=axial" and e.preferred_axial == "s2"
     _, p = en.boltzmann([0.0, e.dg_kcal / 627.509474], [1, 1], T)
-    assert p[0] == pytest.approx(0.995196, abs=2e-6)
+    assert p[0] == pytest.approx(0.995508, abs=2e-6)
     assert p[0] >= 0.99
     assert 1 / (1 + math.exp(-3.2 / (R * T))) == pytest.approx(0.995508, abs=2e-6)
 
@@ -50,7 +49,7 @@ def test_cis_1_tert_butyl_4_methyl():
 def test_cis_1_3_dimethyl_diaxial_gets_the_allinger_miller_term():
     # syn-1,3-diaxial Me/Me = 3.7 kcal/mol (Allinger and Miller, J. Am. Chem. Soc. 1961, 83, 2145); it replaces
     # the two Me/H syn-axial halves already inside the A-values (common practice):
-    #   2 x 1.74 + 3.7 - 1.74 = 5.44 kcal/mol; Allinger and Miller give about 5.5 for this pair (from memory)
+    #   2 x 1.70 + 3.7 - 1.70 = 5.40 kcal/mol; Allinger and Miller give about 5.5 for this pair (from memory)
     e = est([S("s1", 0, "[*]C"), S("s2", 2, "[*]C")], "s1=equatorial;s2=equatorial", "s1=axial;s2=axial")
     assert any("syn-1,3-diaxial" in d and v == pytest.approx(3.7) for d, v in e.terms)
     assert e.dg_kcal == pytest.approx(2 * A_ME + 3.7 - A_ME)
@@ -65,13 +64,20 @@ def test_trans_1_3_dimethyl_has_no_pair_term():
 
 
 def test_trans_1_2_dimethyl_gauche_term():
-    # e,e carries one gauche Me/Me (0.9 kcal/mol, common practice); a,a has 2 x 1.74:
-    #   3.48 - 0.9 = 2.58 kcal/mol; about 2.6 is the textbook value for trans-1,2-dimethylcyclohexane
+    # e,e carries one gauche Me/Me (0.9 kcal/mol, common practice); a,a has 2 x 1.70:
+    #   3.40 - 0.9 = 2.50 kcal/mol; about 2.6 is the textbook value for trans-1,2-dimethylcyclohexane
     #   (Eliel and Wilen 1994, from memory)
     e = est([S("s1", 0, "[*]C"), S("s2", 1, "[*]C")], "s1=axial;s2=axial", "s1=equatorial;s2=equatorial")
     assert e.dg_kcal == pytest.approx(2 * A_ME - 0.9)
-    assert e.dg_kcal == pytest.approx(2.6, abs=0.1)
     assert "gauche" in e.reason
+
+
+@pytest.mark.xfail(strict=True, reason="with the compilation's methyl 1.70 the estimate is 2.50, just outside "
+                   "2.6 +/- 0.1 (textbook value, from memory); reported, not loosened (issue 16 item 3)")
+def test_trans_1_2_dimethyl_against_the_textbook():
+    # about 2.6 kcal/mol is the textbook value for trans-1,2-dimethylcyclohexane (Eliel and Wilen 1994, from memory)
+    e = est([S("s1", 0, "[*]C"), S("s2", 1, "[*]C")], "s1=axial;s2=axial", "s1=equatorial;s2=equatorial")
+    assert e.dg_kcal == pytest.approx(2.6, abs=0.1)
 
 
 def test_cis_1_2_gauche_cancels():
@@ -131,11 +137,11 @@ def test_untabulated_group_needs_a_qm_value():
 
 
 def test_side_by_side_on_one_axis():
-    # tabulated A(Me) 1.74 prefers Me equatorial; a (hypothetical) QM value of -0.3 prefers it axial: on the
+    # tabulated A(Me) 1.70 prefers Me equatorial; a (hypothetical) QM value of -0.3 prefers it axial: on the
     # axis of dg_kcal the QM variant is negative
     e = est([S("s1", 0, "[*]C")], "s1=axial", "s1=equatorial", qm={"[*]C": -0.3})
-    assert e.source == "tabulated" and e.dg_kcal == pytest.approx(1.74)
-    assert e.tabulated_dg_kcal == pytest.approx(1.74) and e.qm_dg_kcal == pytest.approx(-0.3)
+    assert e.source == "tabulated" and e.dg_kcal == pytest.approx(A_ME)
+    assert e.tabulated_dg_kcal == pytest.approx(A_ME) and e.qm_dg_kcal == pytest.approx(-0.3)
 
 
 def test_bad_chairs_are_rejected():
@@ -185,9 +191,9 @@ def test_reversed_preferred_chair_is_flagged(trans14):
 
 def test_gap_difference_and_threshold(trans14):
     flag, reason = ad.disagreement("", 2.2, trans14, 0.0)
-    # |2.2 - 3.48| = 1.28 > 1.0
-    assert flag and "difference 1.3 > 1.0" in reason
-    assert reason.startswith("additive estimate prefers s1 equatorial, s2 equatorial by 3.5 kcal/mol")
+    # |2.2 - 3.40| = 1.20 > 1.0
+    assert flag and "difference 1.2 > 1.0" in reason
+    assert reason.startswith("additive estimate prefers s1 equatorial, s2 equatorial by 3.4 kcal/mol")
     flag, _ = ad.disagreement("", 2.2, trans14, 0.0, threshold_kcal=1.5)
     assert not flag
 
@@ -225,7 +231,7 @@ def test_bad_thresholds(trans14, kw):
 
 
 def test_computed_chair_summary_feeds_the_flag():
-    # computed families of trans-1,4-dimethylcyclohexane whose gap (3.3) is near the additive 3.48
+    # computed families of trans-1,4-dimethylcyclohexane whose gap (3.3) is near the additive 3.40
     # -> not flagged; the lowest chair identity comes from chair_summary
     rt = R * T
     g = np.array([0.0, 3.3, 5.9])
