@@ -1,0 +1,203 @@
+"""The figures of docs/accuracy.md for one stored calibration: per-group table with leave-one-out
+predictions, statistics, example intervals — printed as Markdown, computed from the calibration file.
+
+    python benchmarks/calibration_report.py [--file chairqm/data/calibration.json] [--refined]
+        [--low-t OUT_DIR --low-t-temperature 185] [--retable]
+
+Picks the gas-phase GFN2-xTB calibration (or, with --refined, the one with a DFT refinement key) from the
+list file. Leave-one-out: each used group is predicted by a fit (chairqm.calibration.fit) to the others,
+with that fit's 95 % prediction interval. The experimental temperature column comes from the package table
+(chairqm/data/avalues.csv): 'low T' for direct low-temperature NMR values (170-200 K), a number where one
+is printed, '—' where the compilation states none.
+
+--low-t OUT_DIR: also compare, for the groups whose experimental value is a low-temperature one, the
+computed A-value at --low-t-temperature (summary.csv of a run of the reference configuration that
+includes that temperature) with experiment, beside the 298.15 K comparison.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from chairqm import avalues, calibration as cal  # noqa: E402
+
+
+def _pick(items, refined: bool):
+    for c in items:
+        has_refine = bool((c.settings or {}).get("refine"))
+        if has_refine == refined:
+            return c
+    raise SystemExit("no matching calibration in the file")
+
+
+def _short(source: str) -> str:
+    if source.startswith("general refs"):
+        return "compilation, general refs"
+    if source.startswith("ref "):
+        key, _, body = source[4:].partition(": ")
+        first = body.split(",")[0].split(";")[0].strip()
+        year = next((w.strip(",;.") for w in body.split() if w.strip(",;.").isdigit() and len(w.strip(",;.")) == 4), "")
+        return f"compilation ref {key}: {first} {year}"
+    year = next((w.strip(",;.") for w in source.split() if w.strip(",;.").isdigit() and len(w.strip(",;.")) == 4), "")
+    return f"{source.split(',')[0]} {year}"
+
+
+def _temperature(fragment: str) -> str:
+    row = avalues.lookup(fragment) if fragment else None
+    if row is None:
+        return ""
+    if not math.isnan(row["temperature_k"]):
+        return f"{row['temperature_k']:g} K"
+    if not math.isnan(row["temperature_low_k"]):
+        return "low T"
+    return "—"
+
+
+def report(c, low_t_summary=None, low_t_temperature=None) -> str:
+    pts = [p for p in c.points if p.get("used") == "used"]
+    x = np.array([p["computed_kcal"] for p in pts], dtype=float)
+    y = np.array([p["experimental_kcal"] for p in pts], dtype=float)
+    n = len(pts)
+    out = []
+    out.append("| group | experimental (range) | source of the experimental value | exp. T | computed | error | "
+               "calibrated, leave-one-out [95 % interval] |")
+    out.append("|---|---|---|---|---|---|---|")
+    loo_pred, covered, outside = [], 0, []
+    for i, p in enumerate(pts):
+        mask = np.arange(n) != i
+        f = cal.fit(x[mask], y[mask])
+        v, lo, hi = cal.apply(f, x[i])
+        inside = lo <= y[i] <= hi
+        covered += inside
+        if not inside:
+            outside.append(p["group"])
+        loo_pred.append(v)
+        mem = ", from memory" if p.get("from_memory") else ""
+        rng = ""
+        if p.get("range_low_kcal") is not None and p.get("range_high_kcal") is not None:
+            rng = f" ({p['range_low_kcal']:.2f}–{p['range_high_kcal']:.2f})"
+        out.append(f"| {p['group']} | {y[i]:.2f}{rng} | {_short(p['source'])}{mem} | {_temperature(p['fragment'])} | "
+                   f"{x[i]:.2f} | {x[i] - y[i]:+.2f} | {v:.2f} [{lo:.2f}, {hi:.2f}]{'' if inside else ' (outside)'} |")
+    unused = [p for p in c.points if p.get("used") != "used"]
+    for p in unused:
+        out.append(f"| {p['molecule']} | — | not used: {p['used']} | | "
+                   f"{'' if p.get('computed_kcal') is None else format(p['computed_kcal'], '.2f')} | | |")
+    loo = np.array(loo_pred)
+    out.append("")
+    out.append(f"## Statistics (n = {n})")
+    out.append("")
+    out.append("| quantity | value |")
+    out.append("|---|---|")
+    out.append(f"| mean absolute error, MAE | {c.mae_kcal:.3f} kcal/mol |")
+    out.append(f"| mean signed error, MSE (computed − experimental) | {c.mse_kcal:+.3f} kcal/mol |")
+    out.append(f"| root-mean-square error, RMSE | {c.rmse_kcal:.3f} kcal/mol |")
+    out.append(f"| calibration line (predicts experimental from computed) | experimental = {c.intercept:.3f} + "
+               f"{c.slope:.3f} · computed (kcal/mol) |")
+    out.append(f"| R² | {c.r_squared:.3f} |")
+    out.append(f"| residual standard deviation s (n − 2 = {n - 2} degrees of freedom) | {c.residual_sd_kcal:.3f} kcal/mol |")
+    out.append(f"| t<sub>0.975, {n - 2}</sub> | {c.t_quantile:.3f} |")
+    rf = c.reverse_fit or {}
+    if rf:
+        out.append(f"| reverse line, for the record (computed = a′ + b′ · experimental) | computed = "
+                   f"{rf['intercept']:.3f} + {rf['slope']:.3f} · experimental, residual SD {rf['residual_sd_kcal']:.3f} |")
+    e = loo - y
+    out.append(f"| leave-one-out, calibrated: MAE / RMSE | {np.abs(e).mean():.3f} / {math.sqrt((e ** 2).mean()):.3f} kcal/mol |")
+    out.append(f"| leave-one-out coverage of the 95 % intervals | {covered} of {n}"
+               f"{' (' + ', '.join(outside) + ' outside)' if outside else ''} |")
+    out.append("")
+    out.append(f"x̄ = {c.x_mean_kcal:.3f} kcal/mol, Sxx = {c.sxx_kcal2:.2f} kcal²/mol²; half-width at x̄ "
+               f"{cal.interval_half_width(c, c.x_mean_kcal):.2f}, at the largest computed value ({x.max():.2f}) "
+               f"{cal.interval_half_width(c, x.max()):.2f} kcal/mol.")
+    ex = "; ".join(f"{v:.2f} → {a:.2f} [{lo:.2f}, {hi:.2f}]" for v in (0.5, 1.0, 2.0, 3.0)
+                   for a, lo, hi in [cal.apply(c, v)])
+    out.append(f"Examples (computed → calibrated [95 % interval]): {ex}.")
+    big = max(range(n), key=lambda i: x[i])
+    mask = np.arange(n) != big
+    f = cal.fit(x[mask], y[mask])
+    out.append(f"Without {pts[big]['group']} (the largest computed value): raw MAE {f.mae_kcal:.3f}, RMSE "
+               f"{f.rmse_kcal:.3f}, MSE {f.mse_kcal:+.3f}; line experimental = {f.intercept:.3f} + {f.slope:.3f} · "
+               f"computed, residual SD {f.residual_sd_kcal:.3f}.")
+    order = sorted(range(n), key=lambda i: -abs(x[i] - y[i]))[:6]
+    out.append("Largest errors: " + ", ".join(f"{pts[i]['group']} {x[i] - y[i]:+.2f}" for i in order) + ".")
+    if low_t_summary is not None:
+        out.append("")
+        out.append(_low_t(pts, low_t_summary, low_t_temperature))
+    return "\n".join(out)
+
+
+def retable(c):
+    """A copy of calibration `c` refitted on its stored computed values against the current package table
+    (groups no longer tabulated are dropped)."""
+    points = []
+    for p in c.points:
+        q = dict(p)
+        row = avalues.lookup(p["fragment"]) if p.get("fragment") else None
+        if p.get("used") == "used" and row is None:
+            q["used"] = "group not in the A-value table"
+        elif row is not None:
+            q.update(group=row["group"], experimental_kcal=float(row["a_value_kcal"]),
+                     range_low_kcal=float(row["range_low_kcal"]), range_high_kcal=float(row["range_high_kcal"]),
+                     source=row["source"], from_memory=bool(row["from_memory"]))
+        points.append(q)
+    used = [p for p in points if p.get("used") == "used"]
+    new = cal.fit([p["computed_kcal"] for p in used], [p["experimental_kcal"] for p in used], settings=c.settings)
+    new.points = points
+    new.temperature_k = c.temperature_k
+    return new
+
+
+def _low_t(pts, summary_path, temperature):
+    import pandas as pd
+    df = pd.read_csv(summary_path)
+    lines = [f"| group | experimental (T) | computed at 298.15 K | error | computed at {temperature:g} K | error |",
+             "|---|---|---|---|---|---|"]
+    e298, elow = [], []
+    for p in pts:
+        t = _temperature(p["fragment"])
+        if t in ("—", ""):
+            continue
+        sel = df[(df["molecule"] == p["molecule"]) & np.isclose(df["temperature_k"].astype(float), temperature)]
+        if sel.empty or pd.isna(sel.iloc[0]["a_value_kcal"]):
+            continue
+        a_low = float(sel.iloc[0]["a_value_kcal"])
+        y = p["experimental_kcal"]
+        e298.append(p["computed_kcal"] - y)
+        elow.append(a_low - y)
+        lines.append(f"| {p['group']} | {y:.2f} ({t}) | {p['computed_kcal']:.2f} | {p['computed_kcal'] - y:+.2f} | "
+                     f"{a_low:.2f} | {a_low - y:+.2f} |")
+    if e298:
+        a, b = np.array(e298), np.array(elow)
+        lines.append("")
+        lines.append(f"{len(a)} low-temperature groups: MAE {np.abs(a).mean():.3f} at 298.15 K, "
+                     f"{np.abs(b).mean():.3f} at {temperature:g} K; MSE {a.mean():+.3f} and {b.mean():+.3f}; "
+                     f"RMSE {math.sqrt((a ** 2).mean()):.3f} and {math.sqrt((b ** 2).mean()):.3f} kcal/mol.")
+    return "\n".join(lines)
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--file", type=Path, default=ROOT / "chairqm" / "data" / "calibration.json")
+    ap.add_argument("--refined", action="store_true")
+    ap.add_argument("--low-t", type=Path, default=None, help="output folder of a run that includes the low temperature")
+    ap.add_argument("--low-t-temperature", type=float, default=185.0)
+    ap.add_argument("--retable", action="store_true",
+                    help="pair the calibration's stored computed values with the current package table and refit "
+                         "(no recomputation: shows what the table change alone does to a stored fit)")
+    a = ap.parse_args(argv)
+    c = _pick(cal.load_all(a.file), a.refined)
+    if a.retable:
+        c = retable(c)
+    print(report(c, None if a.low_t is None else a.low_t / "summary.csv", a.low_t_temperature))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
