@@ -171,6 +171,46 @@ def apply(calibration: Calibration, value_kcal) -> tuple[float, float, float]:
     return (float(yhat), float(yhat - h), float(yhat + h))
 
 
+def _first_element(fragment: str) -> str | None:
+    """Element symbol of the atom a group fragment attaches by ('[*]OC(F)(F)F' -> 'O')."""
+    from rdkit import Chem
+    m = Chem.MolFromSmiles(str(fragment))
+    if m is None:
+        return None
+    for a in m.GetAtoms():
+        if a.GetAtomicNum() == 0:
+            nbs = list(a.GetNeighbors())
+            return nbs[0].GetSymbol() if nbs else None
+    return None
+
+
+def domain(calibration: Calibration, ring_elements, substituents) -> str:
+    """'' when a molecule lies inside the calibration's domain, else why not, in words.
+
+    The domain is what the line was fitted on: monosubstituted cyclohexanes whose group attaches through
+    an element that some fitted group attaches through. Outside it — a ring heteroatom, several groups,
+    a fused ring, a group on a ring heteroatom, a group type absent from the fit — the fitted residual
+    spread says nothing about the error, so chairqm reports the value uncalibrated rather than with an
+    interval that would look as certain as inside.
+    """
+    subs = [s for s in substituents if (s.get("fragment") if isinstance(s, dict) else s.fragment) != "[*][H]"]
+    frags = [s.get("fragment") if isinstance(s, dict) else s.fragment for s in subs]
+    if any(str(f).count("*") > 1 for f in frags):
+        return "outside the calibration's domain (a fused ring system; fitted on monosubstituted cyclohexanes)"
+    if list(ring_elements) != ["C"] * 6:
+        hetero = "/".join(sorted({e for e in ring_elements if e != "C"}))
+        return f"outside the calibration's domain (a ring {hetero} atom; fitted on cyclohexanes)"
+    if len(subs) != 1:
+        return (f"outside the calibration's domain ({len(subs)} groups on the ring; fitted on monosubstituted "
+                "cyclohexanes)")
+    fitted = {_first_element(p.get("fragment", "")) for p in calibration.points if p.get("used", "used") == "used"}
+    el = _first_element(frags[0])
+    if fitted and el not in fitted:
+        return (f"outside the calibration's domain (a group attached through {el}; the fit has groups attached "
+                f"through {', '.join(sorted(x for x in fitted if x))} only)")
+    return ""
+
+
 def applies_at(calibration: Calibration, temperature_k: float, tol_k: float = 0.5) -> bool:
     """True if `temperature_k` is the calibration's temperature (within `tol_k` K).
 

@@ -284,3 +284,20 @@ def test_calibrate_refine_writes_the_reference_configuration_with_refinement(tmp
             cli._with_refinement(ref, bad, tmp_path / "o3")
     # a user's mistake is an input error (exit 2), before anything runs
     assert cli.main(["calibrate", str(ref), "--out", str(tmp_path / "o4"), "--refine", "[1]"]) == 2
+
+
+def test_the_calibration_applies_only_inside_its_domain():
+    # fitted on monosubstituted cyclohexanes: heterocycles, several groups, fused rings and group types
+    # absent from the fit are left uncalibrated, each with its reason
+    from types import SimpleNamespace as NS
+
+    from chairqm import calibration as cq_cal
+    cal = cq_cal.load_all(cq_cal.packaged_path())[0]
+    me = [NS(id="s1", fragment="[*]C", ring_atom=0)]
+    assert cq_cal.domain(cal, ["C"] * 6, me) == ""
+    assert "ring O atom" in cq_cal.domain(cal, ["C", "C", "C", "C", "C", "O"], me)
+    assert "2 groups" in cq_cal.domain(cal, ["C"] * 6, me + [NS(id="s2", fragment="[*]C", ring_atom=3)])
+    assert "fused" in cq_cal.domain(cal, ["C"] * 6, [NS(id="s1", fragment="[*]CCCC[*]", ring_atom=0)] * 2)
+    fitted = {cq_cal._first_element(p["fragment"]) for p in cal.points}
+    assert "Ge" not in fitted
+    assert "attached through Ge" in cq_cal.domain(cal, ["C"] * 6, [NS(id="s1", fragment="[*][GeH3]", ring_atom=0)])

@@ -103,6 +103,7 @@ class Entry:
     interaction: float | None = None          # chair gap minus same_method_dg
     interaction_u: float | None = None        # its 95 % half-width
     note: str = ""                            # the ensemble stage's notes (symmetry, lock, rotor coverage)
+    calibration_domain: str = ""              # 'inside', or why the value is left uncalibrated
 
 
 @dataclass
@@ -297,7 +298,8 @@ def _entry(ens_all: dict, rows: list[dict], t) -> Entry:
         same_method_dg=num((ens.get("same_method") or {}).get("dg_kcal")),
         interaction=num((ens.get("same_method") or {}).get("interaction_kcal")),
         interaction_u=num((ens.get("same_method") or {}).get("uncertainty_kcal")),
-        note=str(ens.get("note") or ""))
+        note=str(ens.get("note") or ""),
+        calibration_domain=str(row.get("calibration_domain") or ""))
 
 
 def read_molecule(out: Path, name: str, summary_rows: list[dict]) -> Molecule:

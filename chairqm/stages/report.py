@@ -13,7 +13,7 @@ from .faults import fault
 from .records import read_xyz
 
 
-def calibrate_rows(rows, settings, cal=False) -> str:
+def calibrate_rows(rows, settings, cal=False, plan=None) -> str:
     """Calibrated value and 95 % prediction interval for each row's A-value (or, for rings with several
     groups, its chair gap), from the packaged calibration whose settings match this run, and only at the
     calibration's own temperature (chairqm.calibration.applies_at); returns the note for provenance."""
@@ -25,9 +25,17 @@ def calibrate_rows(rows, settings, cal=False) -> str:
                 + (", DFT refinement level" if settings.get("refine") is not None else "")
                 + "): values are uncalibrated")
     skipped = set()
+    outside = 0
     for r in rows:
         if r.get("status") != "ok":
             continue
+        mol = _plan_molecule(plan, r.get("molecule"))
+        why = cq_cal.domain(cal, mol.ring_elements, mol.substituents) if mol is not None else ""
+        if why:
+            r["calibration_domain"] = why
+            outside += 1
+            continue
+        r["calibration_domain"] = "inside"
         if not cq_cal.applies_at(cal, r["temperature_k"]):
             skipped.add(float(r["temperature_k"]))
             continue
@@ -40,12 +48,23 @@ def calibrate_rows(rows, settings, cal=False) -> str:
                 r.update({"calibrated_kcal": c, "interval_low_kcal": lo, "interval_high_kcal": hi,
                           "calibrated_quantity": quantity})
                 break
-    note = (f"calibrated against {cal.n} experimental A-values (residual SD {cal.residual_sd_kcal:.2f} kcal/mol); "
-            "chair gaps of rings with several groups use the same line, an extrapolation")
+    note = (f"calibrated against {cal.n} experimental A-values (residual SD {cal.residual_sd_kcal:.2f} kcal/mol), "
+            "applied only inside its domain (monosubstituted cyclohexanes of the group types fitted)"
+            + (f"; {outside} row(s) outside it are uncalibrated, with the reason in calibration_domain"
+               if outside else ""))
     if skipped:
         note += (f"; applied only at {float(cal.temperature_k):g} K, its own temperature: values at "
                  f"{', '.join(f'{t:g}' for t in sorted(skipped))} K are uncalibrated")
     return note
+
+
+def _plan_molecule(plan, name):
+    if plan is None:
+        return None
+    try:
+        return plan.get(name)
+    except Exception:
+        return None
 
 
 def summary_rows(cfg, plan) -> list[dict]:
@@ -169,7 +188,7 @@ def run(cfg, plan, name=None, threads=1):
     rows = summary_rows(cfg, plan)
     from .. import calibration as cq_cal
     cal = cq_cal.load_matching(settings)
-    note = calibrate_rows(rows, settings, cal)
+    note = calibrate_rows(rows, settings, cal, plan)
     summary = tables.frame(rows, tables.summary(settings))
     summary["flag"] = summary["flag"].map(lambda v: "true" if bool(v) else "false")
     fileio.write_csv("summary.csv", summary, significant_digits=fileio.SUMMARY_SIGNIFICANT_DIGITS)

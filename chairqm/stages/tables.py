@@ -61,7 +61,7 @@ def summary(settings) -> list[str]:
              "additive_source", "flag", "flag_reason"]
             + ["calibrated_kcal", "interval_low_kcal", "interval_high_kcal", "calibrated_quantity"]
             + (["refined", "chair_dg_unrefined_kcal", "a_value_unrefined_kcal"] if _refined(settings) else [])
-            + ["additive_same_method_kcal", "interaction_kcal", "interaction_uncertainty_kcal"])
+            + ["additive_same_method_kcal", "interaction_kcal", "interaction_uncertainty_kcal", "calibration_domain"])
 
 
 def frame(rows, columns):
