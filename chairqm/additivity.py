@@ -452,7 +452,7 @@ def disagreement(computed_preferred, computed_dg, additive: AdditiveEstimate, no
 # ------------------------------------------------------------------------------ same-method additivity
 
 #: kcal/mol, the spread of one computed A-value about experiment when no calibration matches the run:
-#: the packaged gas-phase calibration's residual SD (docs/accuracy.md: 0.268), rounded up
+#: the packaged gas-phase calibration's residual SD (docs/accuracy.md: 0.261), rounded up
 DEFAULT_GROUP_SD_KCAL = 0.3
 
 

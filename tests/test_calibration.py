@@ -183,8 +183,10 @@ def test_save_replaces_same_key_and_keeps_others(tmp_path):
 def test_shipped_calibration_matches_default_settings():
     c = cal.load_matching(_defaults())
     assert c is not None, "chairqm/data/calibration.json has no calibration for tblite / GFN2-xTB / gas / qrrho / 1.0"
-    assert c.settings == {"engine": "tblite", "method": "GFN2-xTB", "solvent": None, "thermo_model": "qrrho",
-                          "frequency_scale": 1.0}
+    # a fit made by today's settings_key carries refine: None (unrefined); older entries lack the key
+    assert {k: v for k, v in c.settings.items() if k != "refine"} == {
+        "engine": "tblite", "method": "GFN2-xTB", "solvent": None, "thermo_model": "qrrho", "frequency_scale": 1.0}
+    assert c.settings.get("refine") is None
     assert c.n >= 20 and c.temperature_k == pytest.approx(298.15)
     # the stored statistics are those of the stored points (recomputed here from the table)
     pts = pd.DataFrame(c.points)
@@ -195,6 +197,23 @@ def test_shipped_calibration_matches_default_settings():
         assert getattr(again, f) == pytest.approx(getattr(c, f), rel=1e-9, abs=1e-12), f
     y, lo, hi = cal.apply(c, 1.5)
     assert lo < y < hi
+    # the default calibration rests on the package table as it is now (rebuilt from the published
+    # compilation, issue 16 item 3): every used point's experimental value and source are the table's
+    from chairqm import avalues
+    for p in c.points:
+        if p["used"] == "used":
+            row = avalues.lookup(p["fragment"])
+            assert row is not None, p["molecule"]
+            assert p["experimental_kcal"] == pytest.approx(float(row["a_value_kcal"]), abs=1e-12), p["molecule"]
+            assert p["source"] == row["source"] and bool(p["from_memory"]) == bool(row["from_memory"])
+
+
+def test_every_shipped_calibration_point_names_its_source():
+    for c in cal.load_all(cal.packaged_path()):
+        for p in c.points:
+            if p["used"] == "used":
+                assert str(p["source"]).strip(), (c.settings, p["molecule"])
+                assert p["experimental_kcal"] is not None and p["computed_kcal"] is not None
 
 
 def test_shipped_calibration_has_the_default_refinement_level():
