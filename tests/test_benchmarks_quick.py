@@ -20,13 +20,15 @@ SCRIPTS = {
     "rings.py": [],
     "avalue.py": [pytest.mark.slow],
 }
+# scripts that rebuild or report data rather than measure (no --quick): tested below and in test_avalues.py
+DATA_SCRIPTS = {"build_avalue_table.py", "avalue_table_diff.py", "calibration_report.py"}
 # a table as benchmarks/_common.table prints it: a header line, then a rule of dash runs separated by two spaces
 RULE = re.compile(r"^-+(  -+)+$", re.M)
 
 
 def test_every_benchmark_script_is_covered():
     found = {p.name for p in BENCH.glob("*.py") if not p.name.startswith("_")}
-    assert found == set(SCRIPTS), "add new benchmark scripts to SCRIPTS in this test"
+    assert found == set(SCRIPTS) | DATA_SCRIPTS, "add new benchmark scripts to SCRIPTS in this test"
 
 
 @pytest.mark.parametrize("script", [pytest.param(s, marks=m) for s, m in SCRIPTS.items()])
@@ -42,3 +44,36 @@ def test_quick_subset_runs_and_prints_a_table(script):
     body = out[RULE.search(out).end():].strip().splitlines()
     assert body and len(body[0].split()) >= 4       # at least one data row
     assert re.search(r"\d+ cores", out)             # the machine line is printed
+
+
+def test_avalue_table_diff_reports_changed_added_and_dropped_groups(tmp_path):
+    head = ("group,fragment,a_value_kcal,range_low_kcal,range_high_kcal,source,from_memory\n")
+    (tmp_path / "old.csv").write_text(head + "methyl,[*]C,1.74,1.70,1.80,Booth 1980,true\n"
+                                      "ethynyl,[*]C#C,0.41,0.41,0.52,Eliel 1994,true\n"
+                                      "ethoxycarbonyl,[*]C(=O)OCC,1.2,1.1,1.2,Hirsch 1967,true\n", encoding="utf-8")
+    (tmp_path / "new.csv").write_text(head + "methyl,[*]C,1.70,1.70,1.70,general refs: Hirsch,false\n"
+                                      "ethynyl,[*]C#C,0.41,0.41,0.52,ref 2a: Jensen 1969,false\n"
+                                      "fluoro,[*]F,0.28,0.15,0.36,ref 2a: Jensen 1969,false\n", encoding="utf-8")
+    proc = subprocess.run([sys.executable, str(BENCH / "avalue_table_diff.py"), "--old-file", str(tmp_path / "old.csv"),
+                           "--new-file", str(tmp_path / "new.csv")], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    out = proc.stdout
+    # '#' inside a SMILES is data: the ethynyl row must survive the reading
+    assert "| methyl | `[*]C` | 1.74 (1.70–1.80) | 1.70 (1.70–1.70) | -0.04 |" in out
+    assert "| ethynyl | `[*]C#C` | 0.41" in out and "+0.00" in out
+    assert "2 groups in both tables, 1 with a changed value" in out
+    assert "Only in the old table: ethoxycarbonyl" in out and "Only in the new table (1): fluoro." in out
+
+
+def test_calibration_report_reproduces_the_stored_statistics():
+    from chairqm import calibration as cal
+    c = next(c for c in cal.load_all(cal.packaged_path()) if not (c.settings or {}).get("refine"))
+    proc = subprocess.run([sys.executable, str(BENCH / "calibration_report.py")], capture_output=True, text=True,
+                          timeout=300, env=dict(os.environ, OMP_NUM_THREADS="1"))
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    out = proc.stdout
+    assert f"| mean absolute error, MAE | {c.mae_kcal:.3f} kcal/mol |" in out
+    assert f"experimental = {c.intercept:.3f} + {c.slope:.3f} · computed" in out
+    assert f"## Statistics (n = {c.n})" in out
+    assert out.count("(outside)") == int(re.search(r"coverage of the 95 % intervals \| (\d+) of (\d+)", out)
+                                          .group(2)) - int(re.search(r"coverage of the 95 % intervals \| (\d+) of", out).group(1))
