@@ -117,9 +117,7 @@ def _is_charged(s: RingSubstituent) -> bool:
 
 
 def _short_source(row) -> str:
-    src = str(row["source"])
-    mem = ", from memory" if bool(row["from_memory"]) else ""
-    return f"{src}{mem}"
+    return avalues.short_citation(row)
 
 
 def reference_smiles(fragment: str) -> str:

@@ -42,6 +42,7 @@ from __future__ import annotations
 
 import functools
 import io
+import re
 from importlib import resources
 
 import pandas as pd
@@ -107,6 +108,45 @@ def lookup(fragment: str) -> pd.Series | None:
     if hit.empty:
         return None
     return hit.iloc[0].copy()
+
+
+def _year(text: str) -> str:
+    return next((w.strip(",;.()") for w in text.split()
+                 if len(w.strip(",;.()")) == 4 and w.strip(",;.()").isdigit()
+                 and w.strip(",;.()").startswith(("19", "20"))), "")
+
+
+def _cite_one(ref: str) -> str:
+    """'Jensen, F. R.; Bushweller, C. H.; Beck, B. H. J. Am. Chem. Soc. 1969, 91, 344' -> 'Jensen et al. 1969'."""
+    ref = ref.strip()
+    for mark in ("(a) ", "(b) "):
+        ref = ref.removeprefix(mark)
+    if "authors not given" in ref:
+        return f"{ref.split(',')[0].strip()}"
+    authors = re.split(r" (?:J\. Am\. Chem\.|J\. Org\. Chem\.|J\. Chem\.|Tetrahedron|Top\. |Adv\. )", ref)[0]
+    names = [a.split(",")[0].strip() for a in authors.split(";") if a.strip()]
+    if len(names) == 1:
+        who = names[0]
+    elif len(names) == 2:
+        who = f"{names[0]} and {names[1]}"
+    else:
+        who = f"{names[0]} et al."
+    return f"{who} {_year(ref)}".strip()
+
+
+def short_citation(row) -> str:
+    """A compact citation of a table row's value for labels: first authors and year of its original
+    reference as the compilation prints it ('Jensen et al. 1969'; both where one key holds two papers),
+    'general references of the A-value compilation' for a general-reference value, otherwise the source's
+    authors and year; ', from memory' appended for a recalled value."""
+    src = str(row["source"]).strip()
+    mem = ", from memory" if bool(row["from_memory"]) else ""
+    if src.startswith("general refs"):
+        return "general references of the A-value compilation" + mem
+    if src.startswith("ref "):
+        body = src.split(": ", 1)[1] if ": " in src else src
+        return " / ".join(_cite_one(part) for part in body.split("; (b) ")) + mem
+    return f"{src.split(',')[0].strip()} {_year(src)}".strip() + mem
 
 
 def a_value(fragment: str) -> float | None:

@@ -217,3 +217,24 @@ def test_load_table_returns_a_copy():
     t.loc[0, "a_value_kcal"] = 99.0
     assert avalues.load_table().loc[0, "a_value_kcal"] != 99.0
     assert isinstance(t, pd.DataFrame)
+
+
+@pytest.mark.parametrize("fragment,cited", [
+    # authors and year as the compilation prints the original reference
+    ("[*]F", "Jensen et al. 1969"),                       # Jensen, Bushweller, Beck, J. Am. Chem. Soc. 1969
+    ("[*]OC", "Schneider and Hoppen 1978"),               # Schneider, Hoppen, J. Org. Chem. 1978
+    ("[*]N[Si](C)(C)C", "Hardy and Cumming 1971"),        # Hardy, Cumming, J. Am. Chem. Soc. 1971
+    ("[*]O[Si](C)(C)C(C)(C)C", "Eliel and Satici 1994 / Marzabadi et al. 2003"),   # key 10 holds both
+    ("[*]C", "general references of the A-value compilation"),
+    ("[*]C(C)(C)C", "E. L. Eliel and S. H. Wilen 1994, from memory"),
+])
+def test_short_citation_for_labels(fragment, cited):
+    assert avalues.short_citation(avalues.lookup(fragment)) == cited
+
+
+def test_additive_terms_cite_the_table_briefly():
+    from chairqm import additivity as ad
+    subs = [ad.RingSubstituent("s1", 0, "[*]F", 0)]
+    e = ad.additive_estimate([0, 1, 2, 3, 4, 5], ["C"] * 6, subs, {"s1": "axial"}, {"s1": "equatorial"})
+    text = " ".join(t for t, _ in e.terms)
+    assert "Jensen et al. 1969" in text and "J. Am. Chem. Soc." not in text
