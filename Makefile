@@ -15,8 +15,8 @@ $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 
-$(VENV)/.installed: pyproject.toml $(BIN)/python
-	$(BIN)/python -m pip install --quiet -e ".[test,dft]"
+$(VENV)/.installed: pyproject.toml Makefile $(BIN)/python
+	$(BIN)/python -m pip install --quiet -e ".[test,dft,slurm]"
 	@touch $@
 
 install: $(VENV)/.installed

@@ -674,8 +674,9 @@ def _disk_full_note(out: Path, plan, log_path: Path | None) -> str:
 
 
 def _failed_job_logs(out: Path, log_path: Path | None) -> list[Path]:
-    """The log files Snakemake names for its failed jobs ("log: PATH (check log file(s) ...)" after
-    "Error in rule"), as paths inside the output folder."""
+    """The log files Snakemake names for its failed jobs ("log: PATH[, PATH] (check log file(s) ...)"
+    after "Error in rule"; on a cluster the second is the scheduler's log of the job, an absolute path),
+    as paths inside the output folder or absolute."""
     import re
     try:
         text = log_path.read_text(errors="replace") if log_path is not None else ""
@@ -683,10 +684,10 @@ def _failed_job_logs(out: Path, log_path: Path | None) -> list[Path]:
         return []
     found = []
     for block in text.split("Error in rule")[1:]:
-        m = re.search(r"^\s*log:\s*(\S+)", block[:4000], re.M)
-        if m:
-            p = out / m.group(1)
-            if p not in found:
+        m = re.search(r"^\s*log:\s*(.+?)(?:\s+\(check log file|\s*$)", block[:4000], re.M)
+        for name in (m.group(1).split(", ") if m else []):
+            p = out / name.strip()          # an absolute name stays absolute
+            if name.strip() and p not in found:
                 found.append(p)
     return found
 
