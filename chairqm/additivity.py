@@ -563,4 +563,5 @@ def interaction_flag(sm: SameMethod, threshold_kcal: float, tie_kcal: float = 0.
         return True, "; ".join(reasons)
     verdict = ("the cyclohexane A-values transfer to this ring" if hetero else "additive")
     return False, (f"{verdict} within {limit:.2f} kcal/mol: interaction {sm.interaction_kcal:+.2f} ± "
-                   f"{sm.uncertainty_kcal:.2f} against the same-method additive gap {sm.dg_kcal:.2f}")
+                   f"{sm.uncertainty_kcal:.2f} against the same-method additive gap {sm.dg_kcal:.2f}"
+                   + (f" (checked: {', '.join(sm.carriers)})" if sm.carriers else ""))
