@@ -483,7 +483,7 @@ def run(config, out=None, cores: int = 2, until: str | None = None, profile: str
                                 watcher.poll()
                 except BaseException as exc:
                     signum = exc.signum if isinstance(exc, Interrupted) else signal.SIGINT
-                    _stop_workflow(proc, out)
+                    _stop_workflow(proc, out, executor=_executor(extra))
                     if isinstance(exc, (Interrupted, KeyboardInterrupt)):
                         raise Interrupted(signum, out) from None
                     raise
@@ -550,11 +550,72 @@ def _no_file():
     yield None
 
 
-def _stop_workflow(proc, out: Path) -> None:
+def _executor(extra) -> str:
+    """The Snakemake executor of a run: `--executor`/`-e` among the Snakemake arguments, else the
+    `executor` of the profile they name (a folder with config.yaml), else local."""
+    import yaml
+    args = list(extra)
+    for i, a in enumerate(args):
+        if a in ("--executor", "-e") and i + 1 < len(args):
+            return args[i + 1]
+        if a.startswith("--executor="):
+            return a.split("=", 1)[1]
+    for i, a in enumerate(args):
+        folder = args[i + 1] if a == "--profile" and i + 1 < len(args) else \
+            a.split("=", 1)[1] if a.startswith("--profile=") else None
+        if folder:
+            try:
+                return str((yaml.safe_load((Path(folder) / "config.yaml").read_text()) or {}).get("executor")
+                           or "local")
+            except (OSError, yaml.YAMLError, AttributeError):
+                pass
+    return "local"
+
+
+def _cancel_slurm_jobs(out: Path, wait_s: float = 15.0) -> list[str]:
+    """Cancel this user's SLURM jobs still queued or running with `out` as their working directory, and
+    wait (up to `wait_s`) until SLURM has ended them. Stopping Snakemake does not: on SIGTERM it waits for
+    its running jobs and is killed after STOP_GRACE_S, and they stay in the queue. One run at a time uses
+    an output folder (the run lock), so these are the stopped run's jobs. Returns the job ids."""
+    import getpass
+    import shutil
+
+    def ours() -> list[str]:
+        try:
+            q = subprocess.run(["squeue", "-h", "-u", getpass.getuser(), "-o", "%i|%Z"], capture_output=True,
+                               text=True, timeout=30)
+        except (OSError, subprocess.SubprocessError):
+            return []
+        ids = []
+        for line in q.stdout.splitlines() if q.returncode == 0 else []:
+            jid, _, workdir = line.partition("|")
+            try:
+                if workdir and Path(workdir).resolve() == out.resolve():
+                    ids.append(jid.strip())
+            except OSError:
+                pass
+        return ids
+
+    if not (shutil.which("squeue") and shutil.which("scancel")):
+        return []
+    ids = ours()
+    if ids:
+        try:
+            subprocess.run(["scancel", *ids], capture_output=True, timeout=30)
+        except (OSError, subprocess.SubprocessError):
+            return ids
+        end = time.time() + wait_s
+        while time.time() < end and set(ours()) & set(ids):
+            time.sleep(0.5)
+    return ids
+
+
+def _stop_workflow(proc, out: Path, executor: str = "local") -> None:
     """Stop Snakemake and everything it started (job shells, stage processes, their workers): SIGTERM to
-    each, SIGKILL to what is left after STOP_GRACE_S; then remove the temporary files of writes they were
-    in the middle of (`.NAME.XXXX.part`; no process of the run is left to finish them). Further signals
-    are ignored meanwhile, so a second Ctrl-C cannot leave the run half stopped."""
+    each, SIGKILL to what is left after STOP_GRACE_S; on SLURM, cancel the run's jobs still in the queue
+    (`_cancel_slurm_jobs`); then remove the temporary files of writes they were in the middle of
+    (`.NAME.XXXX.part`; no process of the run is left to finish them). Further signals are ignored
+    meanwhile, so a second Ctrl-C cannot leave the run half stopped."""
     import psutil
     ignored = {}
     for sig in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
@@ -589,6 +650,10 @@ def _stop_workflow(proc, out: Path) -> None:
         except subprocess.TimeoutExpired:
             proc.kill()
             proc.wait()
+        if executor == "slurm":
+            cancelled = _cancel_slurm_jobs(out)
+            if cancelled:
+                print(f"chairqm: cancelled SLURM job(s) {', '.join(cancelled)}", file=sys.stderr, flush=True)
         from .stages.__main__ import remove_partial_files
         for folder in [out] + [p for p in out.iterdir() if p.is_dir() and p.name != ".snakemake"]:
             remove_partial_files(folder, recursive=folder != out)

@@ -260,3 +260,60 @@ def test_a_stopped_cluster_run_names_the_rule_log_and_the_slurm_job_log(tmp_path
     found = api._failed_job_logs(tmp_path, log)
     assert found == [tmp_path / "mch/logs/thermo.log", tmp_path / ".snakemake/slurm_logs/rule_thermo/mch/8.log"]
     assert ",," not in api._where_logs(tmp_path, log)
+
+
+def test_the_executor_of_a_run_is_read_from_the_arguments_and_the_profile():
+    from chairqm import api
+    assert api._executor(api.resolve_profiles(["--profile", "slurm"])) == "slurm"
+    assert api._executor(api.resolve_profiles(["--profile", "laptop"])) == "local"
+    assert api._executor(api.resolve_profiles(["--profile", "slurm", "--executor", "local"])) == "local"
+    assert api._executor(["--executor=slurm"]) == "slurm" and api._executor([]) == "local"
+
+
+def _jobs_in(out: Path, cluster, states="PENDING,RUNNING,COMPLETING") -> list[str]:
+    q = subprocess.run(["squeue", "-h", "-t", states, "-o", "%i|%Z"], capture_output=True, text=True,
+                       env=_env(cluster), timeout=30)
+    return [line.split("|")[0] for line in q.stdout.splitlines()
+            if line.split("|")[-1] and Path(line.split("|")[-1]) == out.resolve()]
+
+
+@pytest.mark.slow
+def test_stopping_chairqm_run_cancels_its_slurm_jobs(cluster, local_run):
+    """SIGTERM to `chairqm run` (a login-node session ending, or `kill`) while its job waits in a busy
+    queue: the command stops and the job is cancelled. Snakemake alone waits for it on SIGTERM, is killed
+    after 20 s and leaves it queued."""
+    cfg, _, _ = local_run
+    out = cfg.parent / "stopped"
+    # a busy cluster: the node is drained, so the run's first job waits in the queue
+    node = socket.gethostname().split(".")[0]
+    scontrol = lambda *a: subprocess.run(["scontrol", "update", f"nodename={node}", *a], env=_env(cluster),
+                                         timeout=30, check=True)
+    scontrol("state=drain", "reason=chairqm-test")
+    cmd = run_cmd(cfg, out, "--profile", "slurm", cores=1, extra=PLUGIN_ARGS)
+    log = cfg.parent / "stopped.log"
+    started = time.time()
+    with open(log, "w") as fh:
+        p = subprocess.Popen(cmd, stdout=fh, stderr=subprocess.STDOUT, env=_env(cluster), start_new_session=True)
+    try:
+        waiting = []
+        while not waiting:
+            assert p.poll() is None, f"the run ended (exit {p.returncode}): {tail(log.read_text())}"
+            assert time.time() - started < 300, "no job of the run in the queue within 300 s"
+            time.sleep(0.2)
+            waiting = _jobs_in(out, cluster, "PENDING")
+        os.kill(p.pid, 15)
+        sent = time.time()
+        code = p.wait(timeout=120)
+        stop_s = time.time() - sent
+    finally:
+        if p.poll() is None:
+            os.killpg(p.pid, 9)
+            p.wait()
+        scontrol("state=resume")
+    assert code == 128 + 15, tail(log.read_text())
+    assert f"cancelled SLURM job(s) {', '.join(waiting)}" in log.read_text(), tail(log.read_text())
+    left = _jobs_in(out, cluster)
+    assert not left, f"SLURM jobs of the stopped run left in the queue: {left}"
+    time.sleep(1)
+    assert all(_jobcomp(cluster)[j]["JobState"] == "CANCELLED" for j in waiting)
+    observe("slurm_sigterm", {"jobs": waiting, "stopped_after_s": round(stop_s, 1)})
