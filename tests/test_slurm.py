@@ -10,6 +10,8 @@ SLURM executor plugin as installed by the `slurm` extra.
 2. A run is cancelled half-way with `scancel` (the thermo job, once c001's record is written and c002's
    Hessian has started); the same command run again resumes: the records written before the cancel are
    neither rewritten nor recomputed, and the results equal the local run's.
+3. SIGTERM to `chairqm run` while its job waits in the queue (the node drained) stops the command and
+   cancels the job.
 
 Skipped, with the reason, where the machine cannot start SLURM: not root, no apt-get, the packages cannot
 be installed, or the daemons do not come up. Set CHAIRQM_RELIABILITY_LOG to record what was measured
