@@ -633,7 +633,10 @@ def _stop_workflow(proc, out: Path, executor: str = "local") -> None:
                 p.send_signal(signal.SIGTERM)
             except psutil.Error:
                 pass
-        alive = _wait_gone(procs, proc, STOP_GRACE_S)
+        alive = _wait_gone(procs, proc, STOP_GRACE_S, terminate_new=True)
+        if alive:
+            print(f"chairqm: {len(alive)} process(es) still running {STOP_GRACE_S:.0f} s after SIGTERM, killed: "
+                  + "; ".join(_describe(p) for p in alive), file=sys.stderr, flush=True)
         # processes started meanwhile (a job launched just before the signal) and the stragglers
         try:
             alive += [c for c in psutil.Process(proc.pid).children(recursive=True) if c not in alive]
@@ -662,14 +665,46 @@ def _stop_workflow(proc, out: Path, executor: str = "local") -> None:
             signal.signal(sig, h)
 
 
-def _wait_gone(procs, child, timeout: float) -> list:
+def _describe(p) -> str:
+    try:
+        return f"{p.pid} [{p.status()}] {' '.join(p.cmdline())[:160]}"
+    except Exception:                   # noqa: BLE001 - a description must never stop the stop
+        return str(getattr(p, "pid", p))
+
+
+def _wait_gone(procs, child, timeout: float, terminate_new: bool = False) -> list:
     """Wait until every process in `procs` has ended; the ones still running after `timeout` s. A zombie
     counts as ended: in a container whose first process does not reap orphans, a job whose parent died
-    first stays a zombie for good. Our own child (`child`, Snakemake) is reaped here."""
+    first stays a zombie for good. Our own child (`child`, Snakemake) is reaped here. With
+    `terminate_new`, a process `child` starts meanwhile (a job launched in the instant of the signal, which
+    Snakemake would otherwise wait for until the grace time ends) gets SIGTERM and is waited for too, and
+    the ones still running get it again every second: a signal that arrives while a job is between fork
+    and exec meets the parent's handler, which never runs in the child, and is lost."""
     import psutil
+    procs = list(procs)
     deadline = time.time() + timeout
+    resend = time.time() + 1.0
     while True:
         child.poll()
+        if terminate_new and time.time() >= resend:
+            resend = time.time() + 1.0
+            for p in procs:
+                try:
+                    if p.is_running() and p.status() != psutil.STATUS_ZOMBIE:
+                        p.send_signal(signal.SIGTERM)
+                except psutil.Error:
+                    pass
+        if terminate_new:
+            try:
+                new = [c for c in psutil.Process(child.pid).children(recursive=True) if c not in procs]
+            except psutil.Error:
+                new = []
+            for p in new:
+                try:
+                    p.send_signal(signal.SIGTERM)
+                except psutil.Error:
+                    pass
+            procs += new
         alive = []
         for p in procs:
             try:

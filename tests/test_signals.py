@@ -132,3 +132,36 @@ def test_sigterm_during_a_verbose_run_stops_it_too(setup, tmp_path):
     assert code == 128 + signal.SIGTERM and seconds < STOP_WITHIN_S
     time.sleep(0.2)
     assert not _alive(str(cfg)) and not _temporaries(out) and _run_lock_is_free(out)
+
+
+def test_a_lost_sigterm_is_sent_again():
+    """A job that misses the first SIGTERM (it arrived between fork and exec, where the parent's handler
+    swallows it) is stopped by the repeat within the grace time, not killed at its end (api._wait_gone)."""
+    import sys
+
+    import psutil
+
+    from chairqm import api
+    code = ("import signal, time\n"
+            "signal.signal(signal.SIGTERM, lambda *a: signal.signal(signal.SIGTERM, signal.SIG_DFL))\n"
+            "print('ready', flush=True)\n"
+            "time.sleep(60)\n")
+    child = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    try:
+        assert child.stdout.readline().strip() == "ready"
+        child.send_signal(signal.SIGTERM)          # swallowed, as in the fork-exec window
+        t0 = time.time()
+        alive = api._wait_gone([psutil.Process(child.pid)], child, 10.0, terminate_new=True)
+        assert alive == [] and time.time() - t0 < 5.0
+        assert child.wait(timeout=5) == -signal.SIGTERM
+        # without the repeat the same process outlives a short grace time
+        late = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+        assert late.stdout.readline().strip() == "ready"
+        late.send_signal(signal.SIGTERM)
+        assert api._wait_gone([psutil.Process(late.pid)], late, 2.0) != []
+        late.kill()
+        late.wait()
+    finally:
+        if child.poll() is None:
+            child.kill()
+            child.wait()
