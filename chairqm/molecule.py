@@ -16,7 +16,7 @@ from pathlib import Path
 from rdkit import Chem, RDLogger
 from rdkit.Chem.EnumerateStereoisomers import EnumerateStereoisomers, StereoEnumerationOptions
 
-from . import cages
+from . import cages, relstereo
 from .errors import ChairqmError
 
 RDLogger.DisableLog("rdApp.*")
@@ -193,20 +193,13 @@ def _order_ring(mol, ring):
 
 
 def _group_atoms(mol, ring_set, ring_atom, first):
-    seen = {first}
-    stack = [first]
-    while stack:
-        i = stack.pop()
-        for nb in mol.GetAtomWithIdx(i).GetNeighbors():
-            j = nb.GetIdx()
-            if j in ring_set:
-                if i != first or j != ring_atom:
-                    return None          # the group touches the ring again: fused, bridged or spiro
-                continue
-            if j not in seen:
-                seen.add(j)
-                stack.append(j)
-    return sorted(seen)
+    """The group's atoms (`_component`), or None when the group touches the ring again: fused, bridged
+    or spiro."""
+    atoms = _component(mol, ring_set, first)
+    if any(nb.GetIdx() in ring_set and (i, nb.GetIdx()) != (first, ring_atom)
+           for i in atoms for nb in mol.GetAtomWithIdx(i).GetNeighbors()):
+        return None
+    return atoms
 
 
 def _fragment(mol, ring_atom, first, atoms) -> str:
@@ -403,7 +396,7 @@ def _describe(mol, name, rings, charge, multiplicity, source, raw, entry) -> Per
             s_.fused = next(o["label"] for o in others if set(o["atoms"]) == atoms)
     for o in others:
         if o.get("fused"):
-            kind = _fusion_kind(mol, ring, o)
+            kind = _fusion_kind(mol, ring, o, subs)
             o["fusion"] = kind
             notes.append(f"ring {o['label']} ({len(o['atoms'])} atoms) is {kind}-fused to the analysed ring"
                          + (": the pair cannot ring-flip (locked)" if kind == "trans" else
@@ -509,30 +502,11 @@ def _fused_fragment(mol, ring, atoms) -> str:
     return Chem.MolToSmiles(group).replace("*", "[*]").replace("[[*]]", "[*]")
 
 
-def _fusion_kind(mol, ring, other) -> str:
-    """'cis' or 'trans' for a ring fused to the analysed ring (from one RDKit embedding: the two bonds
-    into the fused ring on the same or opposite faces of the analysed ring), '' when it cannot be told."""
-    from rdkit.Chem import AllChem as _AllChem
-    shared = [a for a in ring if a in set(other["atoms"])]
-    if len(shared) != 2:
-        return ""
-    m = Chem.Mol(mol)
-    if _AllChem.EmbedMolecule(m, randomSeed=7, maxAttempts=20) < 0:
-        return ""
-    import numpy as np
-    x = m.GetConformer().GetPositions()
-    c = x[list(ring)] - x[list(ring)].mean(axis=0)
-    normal = np.linalg.svd(c)[2][-1]
-    ring_set, oset = set(ring), set(other["atoms"])
-    sides = []
-    for a in shared:
-        # the fusion atom's other exocyclic neighbour (H or group), not the fused-ring bond, decides the face
-        exo = [nb.GetIdx() for nb in m.GetAtomWithIdx(a).GetNeighbors()
-               if nb.GetIdx() not in ring_set and nb.GetIdx() not in oset]
-        if len(exo) != 1:
-            return ""
-        sides.append(float((x[exo[0]] - x[a]) @ normal))
-    return "cis" if sides[0] * sides[1] > 0 else "trans"
+def _fusion_kind(mol, ring, other, substituents) -> str:
+    """'cis' or 'trans' for a ring fused to the analysed ring: the relative configuration of its two bonds
+    into the analysed ring (`relstereo.words` of the two fused substituents), '' when it cannot be told."""
+    bonds = [s for s in substituents if s.fused == other["label"]]
+    return relstereo.words(mol, ring, bonds) if len(bonds) == 2 else ""
 
 
 def _other_rings(mol, ring, rings, fused=()) -> list[dict]:
