@@ -19,6 +19,7 @@ docs/reliability.md.
 
 from __future__ import annotations
 
+import contextlib
 import copy
 import glob
 import hashlib
@@ -290,6 +291,15 @@ def _records(out: Path) -> dict:
     return {p: (os.stat(p).st_ino, os.stat(p).st_mtime_ns) for p in files}
 
 
+def same_records(out: Path, kept: dict, message: str) -> dict:
+    """The records in `out` now (`_records`), after checking that every one in `kept` is still the very
+    same file (inode and modification time); a rewritten one fails with `message: path`."""
+    recs = _records(out)
+    for path, stat in kept.items():
+        assert recs.get(path) == stat, f"{message}: {path}"
+    return recs
+
+
 def _temporaries(out: Path) -> list[str]:
     return sorted(str(p.relative_to(out)) for p in out.rglob("*")
                   if p.is_file() and (p.name.endswith(".part") or p.name.endswith(".tmp")))
@@ -341,12 +351,16 @@ def _alive(marker: str) -> list[str]:
     return found
 
 
-STALE_LOCK = ("after SIGKILL the same `chairqm run` command refuses to resume: Snakemake's lock in "
-              "{out}/.snakemake/locks survives the kill and `chairqm run` does not clear it")
+STALE_LOCK = ("after a kill or a signal the same `chairqm run` command refuses to resume: Snakemake's lock in "
+              "{out}/.snakemake/locks survives the interruption and `chairqm run` does not clear it")
 
 
-def _run_until(cmd, out: Path, pattern: str, log: Path, timeout=600):
-    """Start `cmd` in its own process group; SIGKILL the whole group as soon as `pattern` exists."""
+@contextlib.contextmanager
+def running_until(cmd, out: Path, pattern: str, log: Path, timeout=600):
+    """Start `cmd` in its own process group (its output appended to `log`) and yield the process as soon
+    as `pattern` exists under `out`. A run that ends first (a stale lock named as such) or a pattern that
+    does not appear within `timeout` s fails the test; on leaving, a group still running is SIGKILLed and
+    the process is reaped."""
     with open(log, "a") as fh:
         p = subprocess.Popen(cmd, stdout=fh, stderr=subprocess.STDOUT, env=clean_env(), start_new_session=True)
     t0 = time.time()
@@ -359,11 +373,33 @@ def _run_until(cmd, out: Path, pattern: str, log: Path, timeout=600):
             if time.time() - t0 > timeout:
                 raise AssertionError(f"'{pattern}' did not appear within {timeout} s")
             time.sleep(0.005)
+        yield p
     finally:
         if p.poll() is None:
             os.killpg(p.pid, signal.SIGKILL)
         p.wait()
+
+
+def _run_until(cmd, out: Path, pattern: str, log: Path, timeout=600):
+    """Start `cmd` in its own process group; SIGKILL the whole group as soon as `pattern` exists; return
+    the seconds from the start to the kill."""
+    t0 = time.time()
+    with running_until(cmd, out, pattern, log, timeout):
+        pass
     return time.time() - t0
+
+
+def resume_and_compare(cfg, out: Path, reference: Path, kept: dict, interruption: str) -> int:
+    """Rerun the interrupted command to its end: no stale lock, exit 0, no temporary file left, every
+    record in `kept` (finished before `interruption`) the very same file, and contract files identical to
+    the uninterrupted `reference` run. Returns the number of files compared."""
+    final = chairqm_run(cfg, out)
+    assert "LockException" not in final.stderr, STALE_LOCK.format(out=out)
+    assert final.returncode == 0, tail(final.stderr)
+    left = _temporaries(out)
+    assert not left, f"temporary files survive the resumed run: {left}"
+    same_records(out, kept, f"a record finished before {interruption} was recomputed")
+    return assert_same_results(reference, out, ["mch"], resumed=True)
 
 
 @pytest.mark.slow
@@ -381,10 +417,8 @@ def test_kill_and_resume_gives_the_uninterrupted_result(base, reference, tmp_pat
         assert not (out / not_yet).exists(), f"kill point '{what}' missed: {not_yet} already written"
         n_files = _check_readable(out)
         temps = _temporaries(out)
-        recs = _records(out)
         # records that existed at an earlier kill must still be the very same files
-        for path, stat in kept.items():
-            assert recs.get(path) == stat, f"finished record rewritten after kill: {path}"
+        recs = same_records(out, kept, "finished record rewritten after kill")
         kept.update(recs)
         seen["kills"].append({"point": what, "after_s": round(seconds, 1), "files_checked": n_files,
                               "records_kept": len(recs)})
@@ -395,15 +429,7 @@ def test_kill_and_resume_gives_the_uninterrupted_result(base, reference, tmp_pat
                 (out / rel).write_text("half a record")
                 seen["planted"].append(rel)
         # the next iteration reruns the same command and kills it again at the next point
-    final = chairqm_run(cfg, out)
-    assert "LockException" not in final.stderr, STALE_LOCK.format(out=out)
-    assert final.returncode == 0, tail(final.stderr)
-    left = _temporaries(out)
-    assert not left, f"temporary files survive the resumed run: {left}"
-    recs = _records(out)
-    for path, stat in kept.items():
-        assert recs.get(path) == stat, f"a record finished before a kill was recomputed: {path}"
-    n = assert_same_results(reference, out, ["mch"], resumed=True)
+    n = resume_and_compare(cfg, out, reference, kept, "a kill")
     # and the work: gradients computed by the jobs that finished the records, summed, are fewer than in
     # the uninterrupted run (displacements cached before a kill were not computed again)
     calls = [json.loads((o / "provenance.json").read_text())["gradient_calls"] for o in (reference, out)]
