@@ -356,13 +356,14 @@ STALE_LOCK = ("after a kill or a signal the same `chairqm run` command refuses t
 
 
 @contextlib.contextmanager
-def running_until(cmd, out: Path, pattern: str, log: Path, timeout=600):
-    """Start `cmd` in its own process group (its output appended to `log`) and yield the process as soon
-    as `pattern` exists under `out`. A run that ends first (a stale lock named as such) or a pattern that
-    does not appear within `timeout` s fails the test; on leaving, a group still running is SIGKILLed and
-    the process is reaped."""
+def running_until(cmd, out: Path, pattern: str, log: Path, timeout=600, env=None):
+    """Start `cmd` in its own process group (its output appended to `log`; environment `env`, by default
+    `clean_env()`) and yield the process as soon as `pattern` exists under `out`. A run that ends first
+    (a stale lock named as such) or a pattern that does not appear within `timeout` s fails the test; on
+    leaving, a group still running is SIGKILLed and the process is reaped."""
     with open(log, "a") as fh:
-        p = subprocess.Popen(cmd, stdout=fh, stderr=subprocess.STDOUT, env=clean_env(), start_new_session=True)
+        p = subprocess.Popen(cmd, stdout=fh, stderr=subprocess.STDOUT, env=env or clean_env(),
+                             start_new_session=True)
     t0 = time.time()
     try:
         while not glob.glob(str(out / pattern)):
