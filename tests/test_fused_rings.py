@@ -8,14 +8,10 @@ other); a cis-fused one flips with it. Chemistry checks name their outside sourc
 
 from __future__ import annotations
 
-import math
-import subprocess
-import sys
-
 import numpy as np
 import pandas as pd
 import pytest
-import yaml
+from _runs import run_summary
 
 from chairqm import seeds as S
 from chairqm.errors import ChairqmError
@@ -105,15 +101,9 @@ MOLECULES = [
 
 @pytest.fixture(scope="module")
 def run(tmp_path_factory):
-    root = tmp_path_factory.mktemp("fused")
-    cfg = root / "fused.yaml"
-    cfg.write_text(yaml.safe_dump({"project": "fused", "molecules": MOLECULES,
-                                   "settings": {"analysis": {"reference_groups": False}}}))
-    out = root / "out"
-    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "2"],
-                          capture_output=True, text=True, timeout=3000)
-    assert (out / "summary.csv").is_file(), proc.stderr[-3000:]
-    return out, pd.read_csv(out / "summary.csv", keep_default_na=False).set_index("molecule")
+    out = tmp_path_factory.mktemp("fused") / "out"
+    return out, run_summary({"project": "fused", "molecules": MOLECULES,
+                             "settings": {"analysis": {"reference_groups": False}}}, out, index="molecule")
 
 
 def _lowest(out, name, column):

@@ -69,19 +69,9 @@ def test_gas_phase_result_resting_on_hydrogen_bonds_is_flagged(tmp_path):
     # all-cis-cyclohexane-1,3,5-triol: in the gas phase the triaxial chair is held by a ring of three
     # O-H...O bonds (from memory: the classic case of intramolecular hydrogen bonding overriding
     # A-values in non-polar media); chairqm must say that the medium decides
-    import subprocess
-    import sys
-
-    import pandas as pd
-    import yaml
-    cfg = tmp_path / "triol.yaml"
-    cfg.write_text(yaml.safe_dump({"molecules": [{"name": "triol", "smiles": "O[C@H]1C[C@@H](O)C[C@@H](O)C1"}],
-                                   "settings": {"analysis": {"reference_groups": False}}}))
-    out = tmp_path / "out"
-    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "2"],
-                          capture_output=True, text=True, timeout=1800)
-    assert (out / "summary.csv").is_file(), proc.stderr[-3000:]
-    row = pd.read_csv(out / "summary.csv", keep_default_na=False).iloc[0]
+    from _runs import run_summary
+    row = run_summary({"molecules": [{"name": "triol", "smiles": "O[C@H]1C[C@@H](O)C[C@@H](O)C1"}],
+                       "settings": {"analysis": {"reference_groups": False}}}, tmp_path / "triol", timeout=1800).iloc[0]
     assert row["status"] == "ok"
     assert row["preferred_family"] == "chair s1=axial;s2=axial;s3=axial"
     assert str(row["flag"]).lower() == "true" and "intramolecular hydrogen bonds" in row["flag_reason"]

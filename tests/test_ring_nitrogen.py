@@ -8,13 +8,10 @@ checked against outside statements only, with the source named beside each.
 
 from __future__ import annotations
 
-import subprocess
-import sys
-
 import numpy as np
 import pandas as pd
 import pytest
-import yaml
+from _runs import run_summary
 
 from chairqm import seeds as S
 from chairqm.molecule import perceive
@@ -97,15 +94,9 @@ MOLECULES = [
 
 @pytest.fixture(scope="module")
 def run(tmp_path_factory):
-    root = tmp_path_factory.mktemp("ring_n")
-    cfg = root / "ring_n.yaml"
-    cfg.write_text(yaml.safe_dump({"project": "ring-n", "molecules": MOLECULES,
-                                   "settings": {"analysis": {"reference_groups": False}}}))
-    out = root / "out"
-    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "2"],
-                          capture_output=True, text=True, timeout=3000)
-    assert (out / "summary.csv").is_file(), proc.stderr[-3000:]
-    return out, pd.read_csv(out / "summary.csv", keep_default_na=False)
+    out = tmp_path_factory.mktemp("ring_n") / "out"
+    return out, run_summary({"project": "ring-n", "molecules": MOLECULES,
+                             "settings": {"analysis": {"reference_groups": False}}}, out)
 
 
 @pytest.mark.slow
