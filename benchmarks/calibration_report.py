@@ -3,6 +3,7 @@ predictions, statistics, example intervals — printed as Markdown, computed fro
 
     python benchmarks/calibration_report.py [--file chairqm/data/calibration.json] [--refined]
         [--low-t OUT_DIR --low-t-temperature 185] [--retable]
+        [--outside OUT_DIR [--outside-cases configs/reference-outside.csv] [--save]]
 
 Picks the gas-phase GFN2-xTB calibration (or, with --refined, the one with a DFT refinement key) from the
 list file. Leave-one-out: each used group is predicted by a fit (chairqm.calibration.fit) to the others,
@@ -13,6 +14,15 @@ is printed, '—' where the compilation states none.
 --low-t OUT_DIR: also compare, for the groups whose experimental value is a low-temperature one, the
 computed A-value at --low-t-temperature (summary.csv of a run of the reference configuration that
 includes that temperature) with experiment, beside the 298.15 K comparison.
+
+--outside OUT_DIR: the second, out-of-domain reference set (a finished run of configs/reference-outside.yaml;
+experimental values, compared chairs and sources in configs/reference-outside.csv). For each case the
+computed G(chair with the named group axial) − G(chair with it equatorial) at 298.15 K is read from the
+molecule's families.csv (chair families matching each named orientation, Boltzmann-summed), the in-domain
+line is applied, and the residuals give the out-of-domain spread (chairqm.calibration.outside_spread).
+Leave-one-out coverage of the widened 95 % intervals: each case's interval uses the spread measured on the
+other cases only. --save stores the spread, its source set, date and per-case points in the calibration
+file (the entry picked above), where the report stage reads it.
 """
 
 from __future__ import annotations
@@ -182,6 +192,150 @@ def _low_t(pts, summary_path, temperature):
     return "\n".join(lines)
 
 
+OUTSIDE_CASES = ROOT / "configs" / "reference-outside.csv"
+OUTSIDE_CONFIG = "configs/reference-outside.yaml"
+
+
+def read_outside_cases(path=OUTSIDE_CASES):
+    """The second set's cases (one row per molecule): molecule, compared, axial_chair, equatorial_chair,
+    experimental_kcal, conditions, source, from_memory.  Read without a comment character."""
+    import pandas as pd
+    df = pd.read_csv(path, comment=None, dtype={"molecule": str, "source": str})
+    df["from_memory"] = df["from_memory"].astype(str).str.lower().eq("true")
+    return df
+
+
+def _pairs(orientation: str) -> set:
+    return {tuple(x.split("=", 1)) for x in str(orientation).split(";") if "=" in x}
+
+
+def chair_difference(families, axial_chair: str, equatorial_chair: str, temperature_k: float = 298.15):
+    """G(chairs matching `axial_chair`) − G(chairs matching `equatorial_chair`) in kcal/mol from a families
+    table (chairqm.ensemble.FAMILY_COLUMNS).  A chair family matches an orientation spec such as
+    's1=axial;s2=axial' when it carries every id=label pair of the spec (other ids, e.g. a ring N-H that
+    inverts on its own, may take any label); matching families are combined by the Boltzmann sum
+    G = −RT ln Σ exp(−G_F/RT) (the same sum chairqm.ensemble.chair_summary uses).  NaN if either side has
+    no matching chair family."""
+    from chairqm.units import R_KCAL
+    f = families[np.isclose(families["temperature_k"].astype(float), temperature_k)
+                 & (families["ring_form"].astype(str) == "chair")]
+    rt = R_KCAL * temperature_k
+
+    def g(spec):
+        want = _pairs(spec)
+        sel = [float(r.g_rel_kcal) for r in f.itertuples() if want <= _pairs(r.orientation)]
+        if not sel:
+            return math.nan
+        a = np.array(sel)
+        return float(a.min() - rt * math.log(np.exp(-(a - a.min()) / rt).sum()))
+    return g(axial_chair) - g(equatorial_chair)
+
+
+def outside_points(c, out_dir, cases=None, temperature_k: float = 298.15) -> list[dict]:
+    """One dict per case of the second set: experimental, computed (chair_difference from the run's
+    families.csv), calibrated (the in-domain line of `c`), residual = experimental − calibrated, raw error
+    = computed − experimental, source; 'used' is 'used' or why not."""
+    import pandas as pd
+    cases = read_outside_cases() if cases is None else cases
+    pts = []
+    for r in cases.itertuples():
+        p = {"molecule": r.molecule, "compared": r.compared, "experimental_kcal": float(r.experimental_kcal),
+             "source": r.source, "from_memory": bool(r.from_memory), "conditions": r.conditions,
+             "computed_kcal": None, "calibrated_kcal": None, "residual_kcal": None, "error_kcal": None, "used": ""}
+        fam = Path(out_dir) / r.molecule / "families.csv"
+        if not fam.is_file() or fam.stat().st_size == 0:
+            p["used"] = "no families.csv (the molecule failed or did not run)"
+        else:
+            d = chair_difference(pd.read_csv(fam), r.axial_chair, r.equatorial_chair, temperature_k)
+            if math.isnan(d):
+                p["used"] = "a compared chair is missing from the minima"
+            else:
+                yhat = c.intercept + c.slope * d
+                p.update(computed_kcal=d, calibrated_kcal=yhat, residual_kcal=p["experimental_kcal"] - yhat,
+                         error_kcal=d - p["experimental_kcal"], used="used")
+        pts.append(p)
+    return pts
+
+
+def outside_coverage(c, pts):
+    """Leave-one-out coverage of the widened 95 % intervals on the second set: for each used case the
+    out-of-domain spread is measured on the others (chairqm.calibration.outside_spread) and the case's
+    interval is calibrated ∓ chairqm.calibration.interval_half_width_outside.  Returns (covered, n,
+    per-case list of (low, high, inside))."""
+    import copy
+    used = [p for p in pts if p["used"] == "used"]
+    res = np.array([p["residual_kcal"] for p in used], dtype=float)
+    per = []
+    for i, p in enumerate(used):
+        ci = copy.copy(c)
+        ci.outside_domain = cal.outside_spread(np.delete(res, i), c.residual_sd_kcal)
+        _, lo, hi = cal.apply(ci, p["computed_kcal"], outside=True)
+        per.append((lo, hi, bool(lo <= p["experimental_kcal"] <= hi)))
+    return sum(x[2] for x in per), len(used), per
+
+
+def inside_coverage(c):
+    """Leave-one-out coverage of the in-domain 95 % intervals on the calibration's own points (each point
+    predicted by a fit to the others).  Returns (covered, n)."""
+    pts = [p for p in c.points if p.get("used") == "used"]
+    x = np.array([p["computed_kcal"] for p in pts], dtype=float)
+    y = np.array([p["experimental_kcal"] for p in pts], dtype=float)
+    covered = 0
+    for i in range(len(pts)):
+        mask = np.arange(len(pts)) != i
+        _, lo, hi = cal.apply(cal.fit(x[mask], y[mask]), x[i])
+        covered += bool(lo <= y[i] <= hi)
+    return covered, len(pts)
+
+
+def outside_report(c, pts) -> tuple[str, dict]:
+    """The second set's table and statistics (Markdown) and the spread dict to store."""
+    used = [p for p in pts if p["used"] == "used"]
+    res = np.array([p["residual_kcal"] for p in used], dtype=float)
+    err = np.array([p["error_kcal"] for p in used], dtype=float)
+    spread = cal.outside_spread(res, c.residual_sd_kcal)
+    cov, n, per = outside_coverage(c, pts)
+    full = copy_with(c, spread)
+    out = ["| case | compared (G axial − G equatorial) | experimental | source | computed | error | "
+           "calibrated [widened 95 % interval, leave-one-out] |", "|---|---|---|---|---|---|---|"]
+    k = 0
+    for p in pts:
+        mem = ", from memory" if p["from_memory"] else ""
+        if p["used"] != "used":
+            out.append(f"| {p['molecule']} | {p['compared']} | {p['experimental_kcal']:.2f} | {p['source']}{mem} | "
+                       f"— | | not used: {p['used']} |")
+            continue
+        lo, hi, inside = per[k]
+        k += 1
+        sign = " (wrong sign)" if p["computed_kcal"] * p["experimental_kcal"] < 0 else ""
+        out.append(f"| {p['molecule']} | {p['compared']} | {p['experimental_kcal']:.2f} | {p['source']}{mem} | "
+                   f"{p['computed_kcal']:.2f}{sign} | {p['error_kcal']:+.2f} | {p['calibrated_kcal']:.2f} "
+                   f"[{lo:.2f}, {hi:.2f}]{'' if inside else ' (outside)'} |")
+    ic, inn = inside_coverage(c)
+    wrong = sum(1 for p in used if p["computed_kcal"] * p["experimental_kcal"] < 0)
+    out += ["", f"## Out-of-domain statistics (m = {n})", "", "| quantity | value |", "|---|---|",
+            f"| raw error (computed − experimental): MAE / MSE / RMSE | {np.abs(err).mean():.3f} / {err.mean():+.3f} / "
+            f"{math.sqrt((err ** 2).mean()):.3f} kcal/mol |",
+            f"| median absolute raw error | {np.median(np.abs(err)):.3f} kcal/mol |",
+            f"| preferred chair of the compared pair wrong (sign differs from experiment) | {wrong} of {n} |",
+            f"| residual of the in-domain line, experimental − calibrated: RMS_out | {spread['rms_kcal']:.3f} kcal/mol |",
+            f"| in-domain residual SD s | {c.residual_sd_kcal:.3f} kcal/mol |",
+            f"| out-of-domain excess spread τ = sqrt(max(0, RMS_out² − s²)) | {spread['excess_sd_kcal']:.3f} kcal/mol |",
+            f"| t<sub>0.975, m − 1 = {n - 1}</sub> | {spread['t_quantile']:.3f} |",
+            f"| widened half-width at x̄ = {c.x_mean_kcal:.2f} | {cal.interval_half_width_outside(full, c.x_mean_kcal):.2f} kcal/mol "
+            f"(in the domain {cal.interval_half_width(c, c.x_mean_kcal):.2f}) |",
+            f"| leave-one-out coverage of the widened 95 % intervals, second set | {cov} of {n} ({100 * cov / n:.0f} %) |",
+            f"| leave-one-out coverage of the in-domain 95 % intervals, calibration set | {ic} of {inn} ({100 * ic / inn:.0f} %) |"]
+    return "\n".join(out), spread
+
+
+def copy_with(c, spread):
+    import copy
+    ci = copy.copy(c)
+    ci.outside_domain = dict(spread)
+    return ci
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--file", type=Path, default=ROOT / "chairqm" / "data" / "calibration.json")
@@ -191,11 +345,31 @@ def main(argv=None) -> int:
     ap.add_argument("--retable", action="store_true",
                     help="pair the calibration's stored computed values with the current package table and refit "
                          "(no recomputation: shows what the table change alone does to a stored fit)")
+    ap.add_argument("--outside", type=Path, default=None,
+                    help="output folder of a finished run of configs/reference-outside.yaml (the second set)")
+    ap.add_argument("--outside-cases", type=Path, default=OUTSIDE_CASES)
+    ap.add_argument("--save", action="store_true",
+                    help="with --outside: store the measured out-of-domain spread in the calibration file")
     a = ap.parse_args(argv)
     c = _pick(cal.load_all(a.file), a.refined)
     if a.retable:
         c = retable(c)
-    print(report(c, None if a.low_t is None else a.low_t / "summary.csv", a.low_t_temperature))
+    if a.outside is None:
+        print(report(c, None if a.low_t is None else a.low_t / "summary.csv", a.low_t_temperature))
+        return 0
+    import time
+    pts = outside_points(c, a.outside, read_outside_cases(a.outside_cases))
+    text, spread = outside_report(c, pts)
+    print(text)
+    if a.save:
+        c.outside_domain = {**spread, "source_set": OUTSIDE_CONFIG, "cases": str(a.outside_cases.name),
+                            "quantity": "G(chair with the named group axial) - G(chair with it equatorial), 298.15 K",
+                            "formula": "half-width = t(0.975, m-1) * sqrt(s^2 (1 + 1/n + (x0 - xbar)^2 / Sxx) "
+                                       "+ tau^2), tau = sqrt(max(0, RMS_out^2 - s^2))",
+                            "created": time.strftime("%Y-%m-%d"),
+                            "points": [{k: v for k, v in p.items() if k != "conditions"} for p in pts]}
+        cal.save(c, a.file)
+        print(f"\nstored in {a.file}")
     return 0
 
 

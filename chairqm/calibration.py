@@ -75,6 +75,7 @@ class Calibration:
     points: list = field(default_factory=list)        # per-molecule rows (see calibrate_run)
     created: str = ""
     note: str = ""
+    outside_domain: dict = field(default_factory=dict)  # out-of-domain error (outside_spread); {} if not measured
 
     def table(self):
         """The per-molecule points as a pandas DataFrame."""
@@ -156,18 +157,71 @@ def interval_half_width(calibration: Calibration, value_kcal: float) -> float:
     return c.t_quantile * c.residual_sd_kcal * math.sqrt(1.0 + 1.0 / c.n + (x0 - c.x_mean_kcal) ** 2 / c.sxx_kcal2)
 
 
-def apply(calibration: Calibration, value_kcal) -> tuple[float, float, float]:
+def outside_spread(residuals_kcal, in_domain_sd_kcal: float, confidence: float = CONFIDENCE) -> dict:
+    """The out-of-domain error measured on a second reference set, as stored in ``Calibration.outside_domain``.
+
+    `residuals_kcal` are r_j = experimental_j − (intercept + slope · computed_j), the in-domain line applied
+    to m cases outside its domain (heterocycles, several groups, groups on ring heteroatoms).  With
+    RMS_out = sqrt(Σ r_j² / m) and s the in-domain residual SD, the out-of-domain excess spread is
+
+        τ = sqrt(max(0, RMS_out² − s²)),
+
+    the part of the out-of-domain error the in-domain spread does not already cover.  The interval outside
+    the domain (:func:`interval_half_width_outside`) combines τ with the in-domain terms in
+    quadrature and uses t_{(1+c)/2, m−1}, the quantile of the smaller sample τ was measured on.
+    Returns {'n', 'rms_kcal', 'excess_sd_kcal', 't_quantile', 'confidence'}; needs m ≥ 3 finite residuals.
+    """
+    from scipy import stats
+    r = np.asarray(residuals_kcal, dtype=float).ravel()
+    if r.size < 3 or not np.all(np.isfinite(r)):
+        raise ChairqmError(f"an out-of-domain spread needs at least 3 finite residuals, got {r.size}")
+    m = int(r.size)
+    rms = math.sqrt(float((r ** 2).mean()))
+    tau = math.sqrt(max(0.0, rms * rms - float(in_domain_sd_kcal) ** 2))
+    return {"n": m, "rms_kcal": rms, "excess_sd_kcal": tau,
+            "t_quantile": float(stats.t.ppf(0.5 + confidence / 2.0, m - 1)), "confidence": float(confidence)}
+
+
+def has_outside_spread(calibration: Calibration) -> bool:
+    """True if the calibration carries a measured out-of-domain spread (see :func:`outside_spread`)."""
+    o = calibration.outside_domain or {}
+    return all(k in o for k in ("excess_sd_kcal", "t_quantile"))
+
+
+def interval_half_width_outside(calibration: Calibration, value_kcal: float) -> float:
+    """Half-width of the 95 % interval outside the calibration's domain:
+
+        t_{(1+c)/2, m−1} · sqrt(s² · (1 + 1/n + (x0 − x̄)²/Sxx) + τ²),
+
+    the in-domain prediction variance (:func:`interval_half_width`) and the out-of-domain excess spread τ
+    (:func:`outside_spread`, measured on m cases) added in quadrature.  Raises ChairqmError when the
+    calibration has no measured out-of-domain spread.
+    """
+    if not has_outside_spread(calibration):
+        raise ChairqmError("this calibration has no measured out-of-domain spread: outside its domain the "
+                           "value stays uncalibrated")
+    c = calibration
+    o = c.outside_domain
+    x0 = float(value_kcal)
+    var_in = c.residual_sd_kcal ** 2 * (1.0 + 1.0 / c.n + (x0 - c.x_mean_kcal) ** 2 / c.sxx_kcal2)
+    return float(o["t_quantile"]) * math.sqrt(var_in + float(o["excess_sd_kcal"]) ** 2)
+
+
+def apply(calibration: Calibration, value_kcal, outside: bool = False) -> tuple[float, float, float]:
     """(calibrated, low, high) in kcal/mol for one computed value; all three NaN if the value is missing.
 
-    calibrated = intercept + slope · value; low/high = calibrated ∓ :func:`interval_half_width`.
+    calibrated = intercept + slope · value; low/high = calibrated ∓ :func:`interval_half_width`, or, with
+    `outside` (a molecule outside the calibration's domain, see :func:`domain`), ∓
+    :func:`interval_half_width_outside` — all three NaN when the calibration has no measured out-of-domain
+    spread (the value then stays uncalibrated).
     """
     if value_kcal is None:
         return (math.nan, math.nan, math.nan)
     x0 = float(value_kcal)
-    if not math.isfinite(x0):
+    if not math.isfinite(x0) or (outside and not has_outside_spread(calibration)):
         return (math.nan, math.nan, math.nan)
     yhat = calibration.intercept + calibration.slope * x0
-    h = interval_half_width(calibration, x0)
+    h = interval_half_width_outside(calibration, x0) if outside else interval_half_width(calibration, x0)
     return (float(yhat), float(yhat - h), float(yhat + h))
 
 
@@ -190,8 +244,9 @@ def domain(calibration: Calibration, ring_elements, substituents) -> str:
     The domain is what the line was fitted on: monosubstituted cyclohexanes whose group attaches through
     an element that some fitted group attaches through. Outside it — a ring heteroatom, several groups,
     a fused ring, a group on a ring heteroatom, a group type absent from the fit — the fitted residual
-    spread says nothing about the error, so chairqm reports the value uncalibrated rather than with an
-    interval that would look as certain as inside.
+    spread says nothing about the error: the report stage widens the interval there by the out-of-domain
+    spread the calibration carries (:func:`interval_half_width_outside`) or, without one, reports the value
+    uncalibrated rather than with an interval that would look as certain as inside.
     """
     subs = [s for s in substituents if (s.get("fragment") if isinstance(s, dict) else s.fragment) != "[*][H]"]
     frags = [s.get("fragment") if isinstance(s, dict) else s.fragment for s in subs]
@@ -209,6 +264,25 @@ def domain(calibration: Calibration, ring_elements, substituents) -> str:
         return (f"outside the calibration's domain (a group attached through {el}; the fit has groups attached "
                 f"through {', '.join(sorted(x for x in fitted if x))} only)")
     return ""
+
+
+def widened_outside(calibration: Calibration, ring_elements, substituents) -> bool:
+    """True if a molecule outside the domain gets the widened interval rather than no calibrated value.
+
+    The out-of-domain spread was measured on heterocycles (ring O, N, S, Si), groups on a ring heteroatom
+    and cyclohexanes with two groups, all of group types the line was fitted on; it is applied to such
+    cases only.  A fused ring system or a group attached through an element absent from the fit has no
+    measured counterpart and stays uncalibrated; so does everything when the calibration carries no
+    out-of-domain spread.
+    """
+    if not has_outside_spread(calibration):
+        return False
+    subs = [s for s in substituents if (s.get("fragment") if isinstance(s, dict) else s.fragment) != "[*][H]"]
+    frags = [s.get("fragment") if isinstance(s, dict) else s.fragment for s in subs]
+    if any(str(f).count("*") > 1 for f in frags):
+        return False
+    fitted = {_first_element(p.get("fragment", "")) for p in calibration.points if p.get("used", "used") == "used"}
+    return all(_first_element(f) in fitted for f in frags)
 
 
 def applies_at(calibration: Calibration, temperature_k: float, tol_k: float = 0.5) -> bool:

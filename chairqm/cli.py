@@ -65,6 +65,8 @@ def answers_table(summary) -> str:
             what = " (chair dG)" if r.get("calibrated_quantity") == "chair_dg_kcal" else ""
             cal_text = (f"{_fmt(cal)} ({_fmt(r.get('interval_low_kcal'))} to {_fmt(r.get('interval_high_kcal'))})"
                         + what)
+            if str(r.get("calibration_domain") or "").startswith("outside"):
+                cal_text += ", outside its domain: widened"
         elif str(r.get("calibration_domain") or "").startswith("outside"):
             cal_text = "outside its domain"
         tb = r.get("twist_boat_population")

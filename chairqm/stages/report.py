@@ -16,7 +16,10 @@ from .records import read_xyz
 def calibrate_rows(rows, settings, cal=False, plan=None) -> str:
     """Calibrated value and 95 % prediction interval for each row's A-value (or, for rings with several
     groups, its chair gap), from the packaged calibration whose settings match this run, and only at the
-    calibration's own temperature (chairqm.calibration.applies_at); returns the note for provenance."""
+    calibration's own temperature (chairqm.calibration.applies_at); returns the note for provenance.
+    Outside the calibration's domain (calibration_domain keeps the reason) the interval is widened by the
+    calibration's out-of-domain spread (chairqm.calibration.widened_outside, interval_half_width_outside);
+    without one, or for a case the spread was not measured on, the row stays uncalibrated."""
     from .. import calibration as cq_cal
     if cal is False:                   # not looked up by the caller
         cal = cq_cal.load_matching(settings)
@@ -25,17 +28,21 @@ def calibrate_rows(rows, settings, cal=False, plan=None) -> str:
                 + (", DFT refinement level" if settings.get("refine") is not None else "")
                 + "): values are uncalibrated")
     skipped = set()
-    outside = 0
+    outside = widened = 0
     for r in rows:
         if r.get("status") != "ok":
             continue
         mol = _plan_molecule(plan, r.get("molecule"))
         why = cq_cal.domain(cal, mol.ring_elements, mol.substituents) if mol is not None else ""
+        widen = bool(why) and cq_cal.widened_outside(cal, mol.ring_elements, mol.substituents)
         if why:
             r["calibration_domain"] = why
             outside += 1
-            continue
-        r["calibration_domain"] = "inside"
+            if not widen:
+                continue
+            widened += 1
+        else:
+            r["calibration_domain"] = "inside"
         if not cq_cal.applies_at(cal, r["temperature_k"]):
             skipped.add(float(r["temperature_k"]))
             continue
@@ -44,14 +51,27 @@ def calibrate_rows(rows, settings, cal=False, plan=None) -> str:
             if v is not None and v == v:
                 if quantity == "chair_dg_kcal" and float(v) == 0.0:
                     break           # two chairs equal by symmetry (set exactly by the ensemble stage): exact
-                c, lo, hi = cq_cal.apply(cal, float(v))
+                # outside the domain: the same line, the interval widened by the out-of-domain spread
+                c, lo, hi = cq_cal.apply(cal, float(v), outside=widen)
                 r.update({"calibrated_kcal": c, "interval_low_kcal": lo, "interval_high_kcal": hi,
                           "calibrated_quantity": quantity})
                 break
-    note = (f"calibrated against {cal.n} experimental A-values (residual SD {cal.residual_sd_kcal:.2f} kcal/mol), "
-            "applied only inside its domain (monosubstituted cyclohexanes of the group types fitted)"
-            + (f"; {outside} row(s) outside it are uncalibrated, with the reason in calibration_domain"
-               if outside else ""))
+    o = cal.outside_domain or {}
+    if cq_cal.has_outside_spread(cal):
+        note = (f"calibrated against {cal.n} experimental A-values (residual SD {cal.residual_sd_kcal:.2f} kcal/mol) "
+                "inside its domain (monosubstituted cyclohexanes of the group types fitted); outside it (ring "
+                "heteroatoms, several groups) the 95 % interval is widened by the out-of-domain spread "
+                f"{float(o['excess_sd_kcal']):.2f} kcal/mol measured on {o.get('n')} cases of "
+                f"{o.get('source_set', 'a second reference set')}"
+                + (f"; {widened} row(s) outside it carry the widened interval" if widened else "")
+                + (f"; {outside - widened} row(s) outside it (fused rings, group types absent from the fit) are "
+                   "uncalibrated" if outside - widened else "")
+                + ("; calibration_domain gives the reason for every row outside" if outside else ""))
+    else:
+        note = (f"calibrated against {cal.n} experimental A-values (residual SD {cal.residual_sd_kcal:.2f} kcal/mol), "
+                "applied only inside its domain (monosubstituted cyclohexanes of the group types fitted)"
+                + (f"; {outside} row(s) outside it are uncalibrated, with the reason in calibration_domain"
+                   if outside else ""))
     if skipped:
         note += (f"; applied only at {float(cal.temperature_k):g} K, its own temperature: values at "
                  f"{', '.join(f'{t:g}' for t in sorted(skipped))} K are uncalibrated")
