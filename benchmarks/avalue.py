@@ -38,6 +38,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import subprocess
 import sys
 import tempfile
@@ -51,7 +52,9 @@ QUICK = ["[*]F"]
 VARIANTS = {"before": {"thermo": {"frequency_window_kcal": "all"}, "optimize": {"optimizer": "precon-lbfgs"}},
             "window": {"optimize": {"optimizer": "precon-lbfgs"}},
             "model-hessian": {"optimize": {"optimizer": "bfgs-model"}},
-            "default": {}}
+            "default": {},
+            # every stage job in its own interpreter, as before the warm starter (chairqm.stages.warm)
+            "cold": {"_env": {"CHAIRQM_WARM": "0"}}}
 
 
 def config_for(group: str, variant: dict) -> dict:
@@ -60,7 +63,7 @@ def config_for(group: str, variant: dict) -> dict:
     from chairqm import avalues as tab
     from chairqm.api import avalue_molecule_name
     frag = tab.canonical_fragment(group)
-    settings = {"analysis": {"reference_groups": False}, **variant}
+    settings = {"analysis": {"reference_groups": False}, **{k: v for k, v in variant.items() if k != "_env"}}
     return {"project": f"A-value benchmark of {frag}",
             "molecules": [{"name": avalue_molecule_name(frag), "smiles": additivity.reference_smiles(frag)}],
             "settings": settings}
@@ -78,7 +81,7 @@ def measure(group: str, variant: dict, cores: int, keep: Path | None = None) -> 
         out = root / "out"
         t0 = time.perf_counter()
         proc = subprocess.run([C.CHAIRQM, "run", str(path), "--out", str(out), "--cores", str(cores)],
-                              capture_output=True, text=True)
+                              capture_output=True, text=True, env=dict(os.environ, **variant.get("_env", {})))
         wall = time.perf_counter() - t0
         name = cfg["molecules"][0]["name"]
         row = {"group": group, "wall_s": wall, "status": "failed" if proc.returncode else "ok"}

@@ -463,6 +463,7 @@ def run(config, out=None, cores: int = 2, until: str | None = None, profile: str
     env.setdefault("MKL_NUM_THREADS", "1")
     log_path = out / SNAKEMAKE_LOG
     watcher = None
+    starter = None if dry else _start_warm_starter(out, env, _executor(extra))
     try:
         with _signals_as_interrupts():
             if not show:
@@ -483,7 +484,8 @@ def run(config, out=None, cores: int = 2, until: str | None = None, profile: str
                                 watcher.poll()
                 except BaseException as exc:
                     signum = exc.signum if isinstance(exc, Interrupted) else signal.SIGINT
-                    _stop_workflow(proc, out, executor=_executor(extra))
+                    _stop_workflow(proc, out, executor=_executor(extra),
+                                   others=[starter[0]] if starter else [])
                     if isinstance(exc, (Interrupted, KeyboardInterrupt)):
                         raise Interrupted(signum, out) from None
                     raise
@@ -492,6 +494,7 @@ def run(config, out=None, cores: int = 2, until: str | None = None, profile: str
             if not watcher.seen and not watcher.failed_seen and returncode == 0:
                 emit("  nothing to redo: every stage is up to date")
     finally:
+        _stop_warm_starter(starter)
         if lock is not None:
             lock.close()
     if returncode != 0:
@@ -518,6 +521,11 @@ class Interrupted(BaseException):
 
 #: Seconds the workflow's processes get to stop after SIGTERM before they are killed.
 STOP_GRACE_S = 20.0
+#: Seconds Snakemake gets to exit once every process it started has ended. It normally takes ~1 s; once
+#: in a few dozen stops (seen in CI and reproduced here) it stayed asleep until the grace ran out. It is
+#: started with --nolock, so killing it leaves no lock, and its incomplete-job markers make the rerun
+#: (--rerun-incomplete) redo the interrupted job, exactly as after SIGKILL.
+SNAKEMAKE_ALONE_S = 5.0
 
 
 @contextlib.contextmanager
@@ -610,9 +618,59 @@ def _cancel_slurm_jobs(out: Path, wait_s: float = 15.0) -> list[str]:
     return ids
 
 
-def _stop_workflow(proc, out: Path, executor: str = "local") -> None:
-    """Stop Snakemake and everything it started (job shells, stage processes, their workers): SIGTERM to
-    each, SIGKILL to what is left after STOP_GRACE_S; on SLURM, cancel the run's jobs still in the queue
+def _start_warm_starter(out: Path, env: dict, executor: str):
+    """For a local run: the process that forks the stage jobs with the libraries already loaded
+    (chairqm.stages.warm), its socket announced to the jobs in `env`; (process, folder) or None when
+    switched off (CHAIRQM_WARM=0), on another executor, or when it cannot start (jobs then start cold)."""
+    import shutil
+    import tempfile
+
+    from .stages import warm
+    if executor != "local" or not warm.enabled(env):
+        env.pop(warm.SOCKET_ENV, None)
+        return None
+    folder = tempfile.mkdtemp(prefix="chairqm-warm-")      # short: a socket path has at most 107 bytes
+    path = os.path.join(folder, "jobs.sock")
+    try:
+        (out / ".chairqm").mkdir(parents=True, exist_ok=True)
+        with open(out / ".chairqm" / "warm-starter.log", "w") as log:
+            proc = subprocess.Popen([sys.executable, "-m", "chairqm.stages.warm", path], env=env,
+                                    stdin=subprocess.DEVNULL, stdout=log, stderr=subprocess.STDOUT)
+    except OSError:
+        shutil.rmtree(folder, ignore_errors=True)
+        env.pop(warm.SOCKET_ENV, None)
+        return None
+    # the jobs wait for the socket to appear only briefly (bound first thing); a job that finds none runs cold
+    deadline = time.time() + 5.0
+    while not os.path.exists(path) and proc.poll() is None and time.time() < deadline:
+        time.sleep(0.01)
+    if proc.poll() is not None or not os.path.exists(path):
+        _stop_warm_starter((proc, folder))
+        env.pop(warm.SOCKET_ENV, None)
+        return None
+    env[warm.SOCKET_ENV] = path
+    return proc, folder
+
+
+def _stop_warm_starter(starter) -> None:
+    import shutil
+    if not starter:
+        return
+    proc, folder = starter
+    if proc.poll() is None:
+        proc.terminate()
+        try:
+            proc.wait(timeout=5)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+    shutil.rmtree(folder, ignore_errors=True)
+
+
+def _stop_workflow(proc, out: Path, executor: str = "local", others=()) -> None:
+    """Stop Snakemake and everything it started (job shells, stage processes, their workers), and the
+    processes in `others` with theirs (the warm starter and the jobs it forked): SIGTERM to each, SIGKILL
+    to what is left after STOP_GRACE_S; on SLURM, cancel the run's jobs still in the queue
     (`_cancel_slurm_jobs`); then remove the temporary files of writes they were in the middle of
     (`.NAME.XXXX.part`; no process of the run is left to finish them). Further signals are ignored
     meanwhile, so a second Ctrl-C cannot leave the run half stopped."""
@@ -624,17 +682,19 @@ def _stop_workflow(proc, out: Path, executor: str = "local") -> None:
         except (OSError, ValueError):
             pass
     try:
-        try:
-            procs = [psutil.Process(proc.pid)] + psutil.Process(proc.pid).children(recursive=True)
-        except psutil.Error:
-            procs = []
+        procs = []
+        for pid in [proc.pid] + [o.pid for o in others]:
+            try:
+                procs += [psutil.Process(pid)] + psutil.Process(pid).children(recursive=True)
+            except psutil.Error:
+                pass
         for p in procs:
             try:
                 p.send_signal(signal.SIGTERM)
             except psutil.Error:
                 pass
-        alive = _wait_gone(procs, proc, STOP_GRACE_S, terminate_new=True)
-        if alive:
+        alive = _wait_gone(procs, proc, STOP_GRACE_S, terminate_new=True, alone_s=SNAKEMAKE_ALONE_S)
+        if [p for p in alive if p.pid != proc.pid]:
             print(f"chairqm: {len(alive)} process(es) still running {STOP_GRACE_S:.0f} s after SIGTERM, killed: "
                   + "; ".join(_describe(p) for p in alive), file=sys.stderr, flush=True)
         # processes started meanwhile (a job launched just before the signal) and the stragglers
@@ -672,17 +732,19 @@ def _describe(p) -> str:
         return str(getattr(p, "pid", p))
 
 
-def _wait_gone(procs, child, timeout: float, terminate_new: bool = False) -> list:
+def _wait_gone(procs, child, timeout: float, terminate_new: bool = False, alone_s: float | None = None) -> list:
     """Wait until every process in `procs` has ended; the ones still running after `timeout` s. A zombie
     counts as ended: in a container whose first process does not reap orphans, a job whose parent died
     first stays a zombie for good. Our own child (`child`, Snakemake) is reaped here. With
     `terminate_new`, a process `child` starts meanwhile (a job launched in the instant of the signal, which
     Snakemake would otherwise wait for until the grace time ends) gets SIGTERM and is waited for too, and
     the ones still running get it again every second: a signal that arrives while a job is between fork
-    and exec meets the parent's handler, which never runs in the child, and is lost."""
+    and exec meets the parent's handler, which never runs in the child, and is lost. With `alone_s`, the
+    wait also ends when `child` has been the only process left for that long."""
     import psutil
     procs = list(procs)
     deadline = time.time() + timeout
+    alone_since = None
     resend = time.time() + 1.0
     while True:
         child.poll()
@@ -714,6 +776,12 @@ def _wait_gone(procs, child, timeout: float, terminate_new: bool = False) -> lis
                 pass
         if not alive or time.time() >= deadline:
             return alive
+        if alone_s is not None and [p.pid for p in alive] == [child.pid]:
+            alone_since = alone_since or time.time()
+            if time.time() - alone_since >= alone_s:
+                return alive
+        else:
+            alone_since = None
         time.sleep(0.05)
 
 

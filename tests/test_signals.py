@@ -25,6 +25,11 @@ from test_reliability import (KILL_POINTS, MCH, NO_TWIST_BOATS, _alive, _check_r
 #: before it kills them; on this machine they stop in 1-3 s. Generous for a loaded 2-core machine.
 STOP_WITHIN_S = 15.0
 
+#: The report job waits 3 s before it computes (chairqm.stages.faults), so that the third interrupt point
+#: ("report: job started") is hit however slowly this test's polling runs on a loaded machine: with warm
+#: starts the report of one small molecule takes ~1 s.
+PAUSE_REPORT = {"CHAIRQM_FAULTS": '{"pause": ["report"]}'}
+
 # (kill point as in the SIGKILL test, the signal, sent to the whole process group or to chairqm alone)
 INTERRUPTS = [
     (KILL_POINTS[0], signal.SIGTERM, "group"),       # SLURM at a time limit: every process of the job
@@ -47,7 +52,8 @@ def _interrupt_at(cmd, out: Path, pattern: str, signum, target: str, log: Path, 
     """Start `cmd` in its own process group; when `pattern` exists send `signum` to the group or to the
     chairqm process alone; return (exit code, seconds from the signal to the end of the command)."""
     with open(log, "a") as fh:
-        p = subprocess.Popen(cmd, stdout=fh, stderr=subprocess.STDOUT, env=clean_env(), start_new_session=True)
+        p = subprocess.Popen(cmd, stdout=fh, stderr=subprocess.STDOUT, env=clean_env(**PAUSE_REPORT),
+                             start_new_session=True)
     t0 = time.time()
     try:
         while not glob.glob(str(out / pattern)):
@@ -166,3 +172,27 @@ def test_a_lost_sigterm_is_sent_again():
         if child.poll() is None:
             child.kill()
             child.wait()
+
+
+def test_snakemake_alone_after_its_jobs_is_not_waited_for_until_the_grace_ends():
+    """Once every job has ended, a Snakemake that stays asleep is given SNAKEMAKE_ALONE_S, not the whole
+    STOP_GRACE_S (seen once in a few dozen stops; it runs with --nolock, so killing it leaves no lock)."""
+    import sys
+
+    import psutil
+
+    from chairqm import api
+    code = ("import signal, time\n"
+            "signal.signal(signal.SIGTERM, signal.SIG_IGN)\n"
+            "print('ready', flush=True)\n"
+            "time.sleep(60)\n")
+    child = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    try:
+        assert child.stdout.readline().strip() == "ready"
+        t0 = time.time()
+        alive = api._wait_gone([psutil.Process(child.pid)], child, 30.0, terminate_new=True, alone_s=1.0)
+        assert [p.pid for p in alive] == [child.pid]
+        assert 0.9 < time.time() - t0 < 10.0
+    finally:
+        child.kill()
+        child.wait()

@@ -19,12 +19,14 @@ from pathlib import Path
 
 from .. import fileio
 from ..errors import ChairqmError
-from . import FAILURE_RECORD, get, index, names
+from . import FAILURE_RECORD, get, index, names, warm
 from .faults import fault
 
 
 #: exit code of a stage job stopped by a full disk (the errno of ENOSPC)
 DISK_FULL_EXIT = 28
+#: seconds a stage waits before it computes when CHAIRQM_FAULTS asks for a "pause" there (tests only)
+PAUSE_S = 3.0
 
 
 def context(config_path):
@@ -76,6 +78,11 @@ def record_failure(stage: str, name: str, settings: dict, message: str) -> None:
 
 
 def main(argv=None) -> int:
+    if argv is None and os.environ.get(warm.SOCKET_ENV):
+        # a local run's warm starter runs this job in a forked child that has the libraries loaded
+        code = warm.delegate(os.environ[warm.SOCKET_ENV], sys.argv[1:])
+        if code is not None:
+            return code
     ap = argparse.ArgumentParser(prog="python -m chairqm.stages")
     ap.add_argument("stage", choices=names())
     ap.add_argument("--config", default=os.environ.get("CHAIRQM_CONFIG"),
@@ -99,6 +106,9 @@ def main(argv=None) -> int:
         if stage.per_molecule and stage.name != "intake":
             clear_stale_failure(stage.name, args.molecule)
         try:
+            if fault("pause", f"{args.molecule}/{stage.name}" if args.molecule else stage.name):
+                import time
+                time.sleep(PAUSE_S)      # a wider window for the interrupt tests to hit this stage
             if fault("crash", f"{args.molecule}/{stage.name}"):
                 raise RuntimeError("injected fault: unexpected error inside the stage")
             stage.run(cfg, plan, args.molecule, threads=args.threads)

@@ -1,9 +1,11 @@
 """Fault injection for the reliability tests (CHAIRQM_FAULTS); inactive in normal use.
 
 CHAIRQM_FAULTS='{"scf": ["mol/seed"], "bond": ["mol/seed"], "imaginary": ["mol/c001"],
-"crash": ["mol/minima"], "dft_scf": ["mol/c001"]}'. Each fault makes a real failure happen in the named
+"crash": ["mol/minima"], "dft_scf": ["mol/c001"], "pause": ["report"]}'. Each fault makes a real failure happen in the named
 place (an engine that raises, a stretched bond, a genuine saddle point, an unexpected error inside a
-stage, a DFT SCF that cannot converge) so the tests see the isolation machinery work.
+stage, a DFT SCF that cannot converge) so the tests see the isolation machinery work; "pause" holds a
+stage (a molecule's 'mol/stage' or the run-level 'report') a few seconds before it computes, so that an
+interrupt test hits it there however loaded the machine is.
 """
 
 from __future__ import annotations
