@@ -6,6 +6,7 @@ The templates autoescape every value; SVG figures and nothing else enter the pag
 
 from __future__ import annotations
 
+import functools
 import html
 from pathlib import Path
 
@@ -234,7 +235,10 @@ def _relative_stereo(record: dict) -> str:
     return relstereo.words_from_record(record)
 
 
+@functools.lru_cache(maxsize=1)
 def environment() -> jinja2.Environment:
+    """The one template environment of a process (its compiled templates are reused; Jinja reloads a
+    template whose file changed)."""
     env = jinja2.Environment(
         loader=jinja2.FileSystemLoader(str(Path(__file__).parent / "templates")),
         autoescape=True, finalize=_finalize, undefined=jinja2.StrictUndefined,

@@ -35,7 +35,9 @@ PRELOAD = ("numpy", "scipy.optimize", "pandas", "yaml", "rdkit.Chem.AllChem", "a
            "ase.vibrations", "ase.db", "tblite.interface", "matplotlib", "jinja2",
            "chairqm.stages.intake", "chairqm.stages.seeds", "chairqm.stages.minima", "chairqm.stages.thermo",
            "chairqm.stages.ensemble", "chairqm.stages.report", "chairqm.seeds", "chairqm.optimize",
-           "chairqm.engine", "chairqm.hessian", "chairqm.thermo", "chairqm.ensemble", "chairqm.report")
+           "chairqm.engine", "chairqm.hessian", "chairqm.thermo", "chairqm.ensemble", "chairqm.report",
+           "matplotlib.figure", "matplotlib.backends.backend_svg", "chairqm.report.page", "chairqm.report.figures",
+           "chairqm.report.views3d")
 
 
 def enabled(environ=None) -> bool:
@@ -139,6 +141,13 @@ def preload() -> list[str]:
             importlib.import_module(name)
         except Exception:               # noqa: BLE001 - an optional library; the child imports it or fails itself
             missing.append(name)
+    try:                                # the report's templates, compiled once
+        from ..report import page
+        env = page.environment()
+        for name in env.list_templates():
+            env.get_template(name)
+    except Exception:                   # noqa: BLE001 - the report job compiles them itself
+        missing.append("report templates")
     return missing
 
 
