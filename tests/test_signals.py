@@ -8,7 +8,6 @@ test_reliability.py is: the same configuration, kill points, readability checks 
 from __future__ import annotations
 
 import fcntl
-import glob
 import os
 import signal
 import subprocess
@@ -17,9 +16,9 @@ from pathlib import Path
 
 import pytest
 
-from test_reliability import (KILL_POINTS, MCH, NO_TWIST_BOATS, _alive, _check_readable, _records,  # noqa: E402
-                              _temporaries, assert_same_results, chairqm_run, clean_env, observe, run_cmd, tail,
-                              write_config)
+from test_reliability import (KILL_POINTS, MCH, NO_TWIST_BOATS, _alive, _check_readable,  # noqa: E402
+                              _temporaries, chairqm_run, clean_env, observe, resume_and_compare, run_cmd,
+                              running_until, same_records, tail, write_config)
 
 #: A stop "within seconds": chairqm gives the workflow's processes api.STOP_GRACE_S (20 s) after SIGTERM
 #: before it kills them; on this machine they stop in 1-3 s. Generous for a loaded 2-core machine.
@@ -51,18 +50,7 @@ def setup(tmp_path_factory):
 def _interrupt_at(cmd, out: Path, pattern: str, signum, target: str, log: Path, timeout=600):
     """Start `cmd` in its own process group; when `pattern` exists send `signum` to the group or to the
     chairqm process alone; return (exit code, seconds from the signal to the end of the command)."""
-    with open(log, "a") as fh:
-        p = subprocess.Popen(cmd, stdout=fh, stderr=subprocess.STDOUT, env=clean_env(**PAUSE_REPORT),
-                             start_new_session=True)
-    t0 = time.time()
-    try:
-        while not glob.glob(str(out / pattern)):
-            if p.poll() is not None:
-                raise AssertionError(f"the run ended (exit {p.returncode}) before '{pattern}' appeared; "
-                                     f"log: {tail(log.read_text(), 1500)}")
-            if time.time() - t0 > timeout:
-                raise AssertionError(f"'{pattern}' did not appear within {timeout} s")
-            time.sleep(0.005)
+    with running_until(cmd, out, pattern, log, timeout, env=clean_env(**PAUSE_REPORT)) as p:
         sent = time.time()
         if target == "group":
             os.killpg(p.pid, signum)
@@ -73,10 +61,6 @@ def _interrupt_at(cmd, out: Path, pattern: str, signum, target: str, log: Path, 
         except subprocess.TimeoutExpired:
             code = None
         return code, time.time() - sent
-    finally:
-        if p.poll() is None:
-            os.killpg(p.pid, signal.SIGKILL)
-            p.wait()
 
 
 def _run_lock_is_free(out: Path) -> bool:
@@ -112,20 +96,11 @@ def test_sigterm_and_sigint_stop_the_run_and_the_rerun_resumes(setup, tmp_path):
         assert _run_lock_is_free(out), "chairqm's run lock is still held"
         assert f"stopped by {name}" in log.read_text()
         n_files = _check_readable(out)
-        recs = _records(out)
-        for path, stat in kept.items():
-            assert recs.get(path) == stat, f"finished record rewritten after {name}: {path}"
+        recs = same_records(out, kept, f"finished record rewritten after {name}")
         kept.update(recs)
         seen.append({"point": what, "signal": name, "to": target, "stopped_after_s": round(seconds, 2),
                      "exit": code, "files_checked": n_files, "records_kept": len(recs)})
-    final = chairqm_run(cfg, out)
-    assert "LockException" not in final.stderr
-    assert final.returncode == 0, tail(final.stderr)
-    assert not _temporaries(out)
-    recs = _records(out)
-    for path, stat in kept.items():
-        assert recs.get(path) == stat, f"a record finished before a signal was recomputed: {path}"
-    n = assert_same_results(reference, out, ["mch"], resumed=True)
+    n = resume_and_compare(cfg, out, reference, kept, "a signal")
     observe("signals", {"interrupts": seen, "records_never_rewritten": len(kept), "files_compared": n})
 
 
