@@ -8,12 +8,10 @@ errors (README caution and docs/accuracy.md), not the values this code prints.
 from __future__ import annotations
 
 import math
-import subprocess
-import sys
 
 import pandas as pd
 import pytest
-import yaml
+from _runs import run_summary
 
 R_KCAL = 1.987204e-3          # kcal/(mol K), CODATA 2018
 T = 298.15
@@ -28,15 +26,9 @@ MOLECULES = [
 
 @pytest.fixture(scope="module")
 def run(tmp_path_factory):
-    root = tmp_path_factory.mktemp("rings")
-    cfg = root / "rings.yaml"
-    cfg.write_text(yaml.safe_dump({"project": "rings", "molecules": MOLECULES,
-                                   "settings": {"analysis": {"reference_groups": False}}}))
-    out = root / "out"
-    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "2"],
-                          capture_output=True, text=True, timeout=3000)
-    assert (out / "summary.csv").is_file(), proc.stderr[-3000:]
-    return out, pd.read_csv(out / "summary.csv", keep_default_na=False).set_index("molecule")
+    out = tmp_path_factory.mktemp("rings") / "out"
+    return out, run_summary({"project": "rings", "molecules": MOLECULES,
+                             "settings": {"analysis": {"reference_groups": False}}}, out, index="molecule")
 
 
 def _a(summary, name):
@@ -94,15 +86,9 @@ def test_2_chlorocyclohexanone_turns_equatorial_in_a_polar_solvent(run, tmp_path
     # (from memory, as the issue states it): in ALPB water the equatorial chair is preferred, and the
     # solvent moves the equilibrium towards equatorial against the gas-phase run above
     _, gas = run
-    cfg = tmp_path / "water.yaml"
-    cfg.write_text(yaml.safe_dump({"molecules": [MOLECULES[3]],
-                                   "settings": {"solvent": {"model": "alpb", "name": "water"},
-                                                "analysis": {"reference_groups": False}}}))
-    out = tmp_path / "out"
-    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "2"],
-                          capture_output=True, text=True, timeout=3000)
-    assert (out / "summary.csv").is_file(), proc.stderr[-3000:]
-    water = pd.read_csv(out / "summary.csv", keep_default_na=False).set_index("molecule")
+    water = run_summary({"molecules": [MOLECULES[3]],
+                         "settings": {"solvent": {"model": "alpb", "name": "water"},
+                                      "analysis": {"reference_groups": False}}}, tmp_path / "water", index="molecule")
     a_water = _a(water, "cl-cyclohexanone")
     assert a_water > 0                          # equatorial preferred in water
     assert a_water > _a(gas, "cl-cyclohexanone")
@@ -110,17 +96,13 @@ def test_2_chlorocyclohexanone_turns_equatorial_in_a_polar_solvent(run, tmp_path
 
 @pytest.mark.slow
 def test_a_spent_gradient_budget_is_reported_never_silent(tmp_path):
-    cfg = tmp_path / "budget.yaml"
-    cfg.write_text(yaml.safe_dump({"molecules": [{"name": "mch", "smiles": "CC1CCCCC1"}],
-                                   "settings": {"seeds": {"twist_boats": False},
-                                                "optimize": {"max_gradient_calls": 1}}}))
-    out = tmp_path / "out"
-    subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "1"],
-                   capture_output=True, text=True, timeout=900)
+    out = tmp_path / "budget"
+    row = run_summary({"molecules": [{"name": "mch", "smiles": "CC1CCCCC1"}],
+                       "settings": {"seeds": {"twist_boats": False},
+                                    "optimize": {"max_gradient_calls": 1}}}, out, cores=1, timeout=900).iloc[0]
     minima = pd.read_csv(out / "mch" / "minima.csv", keep_default_na=False)
     assert "not-optimised" in set(minima["status"])
     assert any("gradient budget" in r for r in minima["reason"])
-    row = pd.read_csv(out / "summary.csv", keep_default_na=False).iloc[0]
     assert str(row["flag"]).lower() == "true" and "gradient budget" in row["flag_reason"]
 
 
@@ -129,12 +111,7 @@ def test_chairs_that_are_one_conformer_by_symmetry_have_gap_zero(tmp_path):
     """cis-1,4-Dimethylcyclohexane: the ring flip gives the same conformer (its two chairs are
     indistinguishable, a textbook example, from memory), so the chair gap is exactly 0 and agrees with the
     additive estimate A(Me) − A(Me) = 0 — not 'the ring-flip partner chair was not found'."""
-    cfg = tmp_path / "sym.yaml"
-    cfg.write_text(yaml.safe_dump({"molecules": [{"name": "cis14", "smiles": "C[C@H]1CC[C@@H](C)CC1"}],
-                                   "settings": {"seeds": {"twist_boats": False}}}))
-    out = tmp_path / "out"
-    subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "2"],
-                   capture_output=True, text=True, timeout=900)
-    row = pd.read_csv(out / "summary.csv", keep_default_na=False).iloc[0]
+    row = run_summary({"molecules": [{"name": "cis14", "smiles": "C[C@H]1CC[C@@H](C)CC1"}],
+                       "settings": {"seeds": {"twist_boats": False}}}, tmp_path / "sym", timeout=900).iloc[0]
     assert row["status"] == "ok" and float(row["chair_dg_kcal"]) == 0.0
     assert "not found" not in row["flag_reason"] and str(row["flag"]).lower() == "false"

@@ -8,12 +8,10 @@ values of the chemistry come from outside the project, with their source beside 
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
+import os
 
-import pandas as pd
 import pytest
-import yaml
+from _runs import run_summary
 
 from chairqm import additivity as A
 from chairqm import reference_cache as RC
@@ -104,15 +102,9 @@ MOLECULES = [
 
 
 def _run(root, name, molecules, cache_dir):
-    cfg = root / f"{name}.yaml"
-    cfg.write_text(yaml.safe_dump({"project": name, "molecules": molecules,
-                                   "settings": {"temperatures_k": [298.15]}}))
     out = root / name
-    env = {**__import__("os").environ, RC.ENV: str(cache_dir)}
-    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "2"],
-                          capture_output=True, text=True, timeout=3000, env=env)
-    assert (out / "summary.csv").is_file(), proc.stderr[-3000:]
-    return out, pd.read_csv(out / "summary.csv", keep_default_na=False).set_index("molecule")
+    return out, run_summary({"project": name, "molecules": molecules, "settings": {"temperatures_k": [298.15]}},
+                            out, index="molecule", env={**os.environ, RC.ENV: str(cache_dir)})
 
 
 @pytest.fixture(scope="module")
