@@ -208,6 +208,8 @@ def cmd_calibrate(args, extra) -> int:
     cq_cal.save(cal, target)
     cq_cal.parity_plot(cal, out / "parity.png")
     print(f"chairqm: calibration stored in {target}; parity plot {out / 'parity.png'}")
+    print("chairqm: it has no out-of-domain spread yet, so values outside its domain stay uncalibrated: measure "
+          "one on configs/reference-outside.yaml (docs/accuracy.md, \"Outside the domain\")")
     if not args.save:
         print("chairqm: to use it for later runs with these settings, rerun with "
               f"--save {cq_cal.packaged_path()}")

@@ -200,3 +200,29 @@ def test_inside_coverage_of_the_packaged_calibration_is_computed():
     covered, n = mod.inside_coverage(cal)
     assert n == cal.n
     assert 0 < covered <= n
+
+
+def test_outside_points_read_a_small_finished_folder(tmp_path):
+    # one case with a families.csv (copied shape of a run's table), one whose molecule did not run,
+    # one whose compared chair is missing
+    mod = _report_module()
+    c = cq_cal.fit([0.0, 1.0, 2.0, 3.0], [0.1, 0.9, 2.2, 2.9])
+    cases = pd.DataFrame({"molecule": ["a", "b", "d"], "compared": ["x", "y", "z"],
+                          "axial_chair": ["s1=axial;s2=axial", "s1=axial", "s1=axial"],
+                          "equatorial_chair": ["s1=equatorial;s2=equatorial", "s1=equatorial", "s1=equatorial"],
+                          "experimental_kcal": [-0.5, 1.0, 1.0], "conditions": ["vapour"] * 3,
+                          "source": ["Author A, J. Chem. 1999, 1"] * 3, "from_memory": [True] * 3})
+    (tmp_path / "a").mkdir()
+    pd.DataFrame({"temperature_k": [298.15, 298.15, 298.15], "ring_form": ["chair", "chair", "twist-boat"],
+                  "orientation": ["s1=axial;s2=axial", "s1=equatorial;s2=equatorial", "s1=pseudo-axial;s2=isoclinal"],
+                  "g_rel_kcal": [0.0, 0.8, 4.0]}).to_csv(tmp_path / "a" / "families.csv", index=False)
+    (tmp_path / "d").mkdir()
+    pd.DataFrame({"temperature_k": [298.15], "ring_form": ["chair"], "orientation": ["s1=axial"],
+                  "g_rel_kcal": [0.0]}).to_csv(tmp_path / "d" / "families.csv", index=False)
+    a, b, d = mod.outside_points(c, tmp_path, cases)
+    assert a["used"] == "used" and a["computed_kcal"] == pytest.approx(-0.8)
+    assert a["calibrated_kcal"] == pytest.approx(c.intercept - 0.8 * c.slope)
+    assert a["residual_kcal"] == pytest.approx(-0.5 - a["calibrated_kcal"])
+    assert a["error_kcal"] == pytest.approx(-0.8 + 0.5)
+    assert b["used"].startswith("no families.csv") and b["computed_kcal"] is None
+    assert d["used"].startswith("a compared chair is missing")
