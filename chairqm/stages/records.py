@@ -73,15 +73,25 @@ class CalcFactory:
                                       es["solvent"], es["accuracy"], t)
 
 
+def worker_context():
+    """How worker processes start: forked from a warm-started stage job (chairqm.stages.warm; it is one
+    thread with the libraries loaded and the engines single-threaded, so a fork is safe and saves each
+    worker an interpreter and its imports), spawned otherwise (a cold job's libraries are not worth
+    inheriting, and spawning inherits no engine state)."""
+    import multiprocessing as mp
+
+    from . import warm
+    return mp.get_context("fork" if warm.IN_CHILD else "spawn")
+
+
 def pool_map(fn, items, threads):
-    """Run fn over items, in `threads` worker processes when more than one (spawned, so no engine state
-    is inherited); results in input order."""
+    """Run fn over items, in `threads` worker processes when more than one (`worker_context`); results in
+    input order."""
     items = list(items)
     if threads <= 1 or len(items) <= 1:
         return [fn(x) for x in items]
-    import multiprocessing as mp
     from concurrent.futures import ProcessPoolExecutor
-    with ProcessPoolExecutor(max_workers=min(threads, len(items)), mp_context=mp.get_context("spawn")) as ex:
+    with ProcessPoolExecutor(max_workers=min(threads, len(items)), mp_context=worker_context()) as ex:
         return list(ex.map(fn, items))
 
 
@@ -100,9 +110,8 @@ def budgeted_map(fn, items, threads, budget, cost, spent=0):
             out[i] = fn(x)
             spent += cost(out[i])
         return out
-    import multiprocessing as mp
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
-    with ProcessPoolExecutor(max_workers=min(threads, len(items)), mp_context=mp.get_context("spawn")) as ex:
+    with ProcessPoolExecutor(max_workers=min(threads, len(items)), mp_context=worker_context()) as ex:
         nxt, running = 0, {}
         while nxt < len(items) or running:
             while nxt < len(items) and len(running) < threads and spent < budget:

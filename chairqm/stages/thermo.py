@@ -188,9 +188,10 @@ def _executor(threads, jobs):
     displacements, or None for one thread or nothing to compute."""
     if threads <= 1 or not jobs:
         return None
-    import multiprocessing as mp
     from concurrent.futures import ProcessPoolExecutor
-    return ProcessPoolExecutor(max_workers=threads - 1, mp_context=mp.get_context("spawn"))
+
+    from .records import worker_context
+    return ProcessPoolExecutor(max_workers=threads - 1, mp_context=worker_context())
 
 
 def _phase_window(th, temps, recs, work, minima, es, first):

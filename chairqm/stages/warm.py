@@ -27,6 +27,8 @@ import struct
 import sys
 
 SOCKET_ENV = "CHAIRQM_WARM_SOCKET"
+#: True in a stage job forked by the starter (its worker pools may then fork too: records.worker_context)
+IN_CHILD = False
 SWITCH_ENV = "CHAIRQM_WARM"
 
 #: What a stage job imports lazily, loaded once by the starter (a library that is missing is skipped;
@@ -153,6 +155,8 @@ def preload() -> list[str]:
 
 def _run_child(conn, listener, payload: dict, fds: list[int]) -> None:
     """In the forked child: become the stage job and never return."""
+    global IN_CHILD
+    IN_CHILD = True
     code = 1
     try:
         for sig in (signal.SIGTERM, signal.SIGHUP):
@@ -271,4 +275,6 @@ def serve(path: str) -> None:
 
 
 if __name__ == "__main__":
-    serve(sys.argv[1])
+    # run as the importable module, not as __main__, so that IN_CHILD is the flag the stages read
+    from chairqm.stages import warm as _module
+    _module.serve(sys.argv[1])
