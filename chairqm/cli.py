@@ -33,6 +33,11 @@ resolve_profiles = api.resolve_profiles
 def cmd_check(args) -> int:
     result = api.check(args.config)
     print(result.table)
+    auto = getattr(result.plan, "refine_auto", None)
+    if auto:
+        print("\nsettings.refine: auto, DFT single points only where GFN2-xTB is known to err:")
+        for name, d in auto.items():
+            print(f"  {name}: {'refined' if d['refine'] else 'not refined'}: {d['reason']}")
     if result.refine_estimate:
         print("\n" + result.refine_estimate)
     print("\n" + result.settings_line)

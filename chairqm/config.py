@@ -85,8 +85,11 @@ def _messages(cfg: dict, schema: dict) -> list[str]:
                         "(starting with a letter, digit or '_'; no '/'; at most 64 characters), because it becomes a folder name")
         elif err.validator == "oneOf" and path and path[-1] == "refine":
             if not isinstance(err.instance, dict):
-                msgs.append(f"{where}: give a mapping of refinement settings ({{}} takes every default) or "
-                            f"leave it out for no refinement, got {err.instance!r}")
+                hint = (" (did you mean 'auto'?)" if isinstance(err.instance, str)
+                        and difflib.get_close_matches(err.instance.strip().lower(), ["auto"], n=1, cutoff=0.5) else "")
+                msgs.append(f"{where}: give a mapping of refinement settings ({{}} takes every default and "
+                            "refines every molecule), 'auto' (refines only the molecules where GFN2-xTB is known "
+                            f"to err) or leave it out for no refinement, got {err.instance!r}{hint}")
             else:
                 block = next(b for b in err.schema["oneOf"] if b.get("type") == "object")
                 for m in _messages(err.instance, block):

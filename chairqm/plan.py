@@ -18,9 +18,25 @@ class Plan:
     # same-method A-values taken from the reference cache instead of a reference ring of this run:
     # fragment -> {temperature: A-value} (chairqm.reference_cache)
     cached: dict = field(default_factory=dict)
+    # settings.refine as configured (None: no refinement), and under refine: auto each molecule's
+    # decision, name -> {"refine": bool, "reason": str, "reasons": [str]} (chairqm.refine.auto_decision)
+    refine: object = None
+    refine_auto: dict = field(default_factory=dict)
 
     def names(self) -> list[str]:
         return [m.name for m in self.molecules]
+
+    def refines(self, name: str) -> bool:
+        """Whether the refine stage runs for molecule `name`: always with a refinement block, never
+        without one, and under refine: auto as decided for it."""
+        if self.refine is None:
+            return False
+        decision = self.refine_auto.get(name)
+        return True if decision is None else bool(decision["refine"])
+
+    def refine_decision(self, name: str) -> dict | None:
+        """The refine: auto decision for `name` ({"refine", "reason", "reasons"}); None without auto."""
+        return self.refine_auto.get(name)
 
     def get(self, name: str) -> Perceived:
         for m in self.molecules:
@@ -75,7 +91,38 @@ def make_plan(cfg: dict) -> Plan:
     cached = {}
     if settings.get("analysis", {}).get("reference_groups", True) and not problems:
         mols.extend(_reference_molecules(mols, settings, problems, cached))
-    return Plan(mols, problems, cached)
+    block = settings.get("refine")
+    return Plan(mols, problems, cached, refine=block, refine_auto=_auto_decisions(mols, settings))
+
+
+def _reference_settings(frag, settings) -> dict:
+    """The settings a reference ring's cached A-value is stored under: the run's, except under
+    refine: auto, where the ring's own decision makes them those of an unrefined or a refined run (the
+    ensemble stage stores it so, chairqm.refine.molecule_settings)."""
+    block = settings.get("refine")
+    if not (block == "auto" or isinstance(block, dict) and block.get("auto") is True):
+        return settings
+    from . import additivity, refine
+    try:
+        ring = perceive({"name": _slug(frag), "smiles": additivity.reference_smiles(frag), "reference": True},
+                        ".", settings)[0]
+    except (ChairqmError, IndexError):
+        return settings
+    return refine.molecule_settings(settings, bool(_auto_decisions([ring], settings)[ring.name]["refine"]))
+
+
+def _auto_decisions(mols, settings) -> dict:
+    """Under settings.refine: auto, each molecule's decision (chairqm.refine.auto_decision) against the
+    GFN2-xTB calibration of these settings without refinement (the one the unrefined molecules use);
+    {} otherwise. Made here, once, so that the workflow asks for refine jobs of the chosen molecules only
+    and every stage job sees the same decision."""
+    block = settings.get("refine")
+    if not (block == "auto" or isinstance(block, dict) and block.get("auto") is True):
+        return {}                   # (chairqm.refine.is_auto, without importing the DFT modules)
+    from . import refine
+    from . import calibration
+    cal = calibration.load_matching(refine.molecule_settings(settings, refined=False))
+    return {m.name: refine.auto_decision(m, cal) for m in mols}
 
 
 def perceive_entry(entry: dict, base, settings: dict) -> list[Perceived]:
@@ -111,7 +158,7 @@ def _reference_molecules(mols, settings, problems, cached=None):
         if frag in have or frag == "[*][H]":
             continue
         if not Path(_slug(frag)).exists():
-            hit = reference_cache.lookup(frag, settings, temps)
+            hit = reference_cache.lookup(frag, _reference_settings(frag, settings), temps)
             if hit is not None:
                 if cached is not None:
                     cached[frag] = hit

@@ -30,6 +30,9 @@ from chairqm.units import KCAL_PER_HARTREE
 
 
 # ------------------------------------------------------------------------------------------ settings
+#: settings.refine: auto refines only the molecules where GFN2-xTB is known to err (:func:`auto_decision`)
+AUTO = "auto"
+
 @functools.lru_cache(maxsize=1)
 def _schema_block() -> dict:
     """The object branch of ``settings.refine`` in the configuration schema (chairqm.config.load_schema)."""
@@ -57,8 +60,11 @@ def resolve(settings) -> dict:
     """
     if settings is None:
         settings = {}
+    if settings == AUTO:
+        settings = {"auto": True}
     if not isinstance(settings, dict):
-        raise ChairqmError(f"settings.refine must be a mapping such as {{functional: B3LYP}}, got {settings!r}")
+        raise ChairqmError(f"settings.refine must be a mapping such as {{functional: B3LYP}} or '{AUTO}', "
+                           f"got {settings!r}")
     unknown = sorted(set(settings) - set(DEFAULTS))
     if unknown:
         hints = "".join(_did_you_mean(k, DEFAULTS) for k in unknown)
@@ -71,8 +77,9 @@ def resolve(settings) -> dict:
         s[key] = s[key].strip()
     s["dispersion"] = str(s["dispersion"]).strip().lower()
     s["solvent_model"] = str(s["solvent_model"]).strip().lower()
-    if not isinstance(s["density_fitting"], bool):
-        raise ChairqmError(f"settings.refine.density_fitting must be true or false, got {s['density_fitting']!r}")
+    for key in ("density_fitting", "auto"):
+        if not isinstance(s[key], bool):
+            raise ChairqmError(f"settings.refine.{key} must be true or false, got {s[key]!r}")
     for key in ("max_memory_mb", "max_cycle", "grid_level"):
         if isinstance(s[key], bool) or not isinstance(s[key], (int, np.integer)) and not (
                 isinstance(s[key], float) and s[key].is_integer()):
@@ -86,8 +93,9 @@ def resolve(settings) -> dict:
     return s
 
 
-# settings that choose which conformers are refined or how much memory PySCF may take, not the energy
-_NOT_ENERGY = ("window_kcal", "max_memory_mb")
+# settings that choose which conformers (or molecules) are refined or how much memory PySCF may take,
+# not the energy
+_NOT_ENERGY = ("window_kcal", "max_memory_mb", "auto")
 
 
 def energy_settings(settings) -> dict:
@@ -268,3 +276,112 @@ def composite(e_dft, e_xtb, g_xtb, solvation_hartree=0.0):
 def delta_kcal(e_a, e_b) -> float:
     """(e_a − e_b) in kcal/mol from hartree."""
     return (float(e_a) - float(e_b)) * KCAL_PER_HARTREE
+
+
+# ------------------------------------------------------------------------------- refine: auto (per molecule)
+def is_auto(block) -> bool:
+    """True for settings.refine: auto and for a mapping with auto: true."""
+    return block == AUTO or (isinstance(block, dict) and block.get("auto") is True)
+
+
+def molecule_settings(settings: dict, refined: bool) -> dict:
+    """The run's settings as they apply to one molecule under refine: auto — refine null for a molecule
+    left unrefined, the refinement block without `auto` for a refined one — so that the calibration (and
+    anything else keyed by the settings) is looked up as for a run that made the same choice for every
+    molecule. Settings without auto come back unchanged."""
+    block = (settings or {}).get("refine")
+    if not is_auto(block):
+        return settings
+    own = None
+    if refined:
+        own = {k: v for k, v in (block if isinstance(block, dict) else {}).items() if k != "auto"}
+    return {**settings, "refine": own}
+
+
+#: Reason of a molecule left unrefined because nothing marks it, in words.
+INSIDE_DOMAIN = "monosubstituted cyclohexane inside the calibration's domain"
+
+
+def weak_spots(p) -> list[str]:
+    """Why GFN2-xTB is known to err for molecule `p` (a chairqm.molecule.Perceived), in words, one entry
+    per reason in a fixed order; [] when none applies. The domain where it errs was measured on the
+    second reference set (docs/accuracy.md, "Outside the domain": errors of 1-2 kcal/mol, two wrong
+    chairs, all in these classes):
+
+    - a ring heteroatom next to a substituted ring carbon ("ring O next to the substituted carbon"):
+      anomeric and 1,3-diaxial effects with lone pairs (2-methyloxane, 2-methyl-1,3-dioxane and -dithiane);
+    - a group on a ring heteroatom ("a group on the ring N (N-methyl)"): N-, Si-, S-substitution, whose
+      inversion barriers and bond lengths GFN2-xTB handles worst;
+    - a ring N-H (its axial/equatorial balance, piperidine);
+    - C-F bonds on two or more carbons, or two or more on ring carbons (polyfluorinated rings; a single
+      CF3 group is a fitted group type);
+    - a sulfoxide or a sulfone (S=O anywhere in the molecule).
+    """
+    from rdkit import Chem
+    mol = p.mol
+    ring = list(p.ring)
+    el = dict(zip(ring, p.ring_elements))
+    n = len(ring)
+    out = []
+    subs = [s for s in p.substituents if not s.fused]
+    for s in subs:
+        if el.get(s.ring_atom) == "C" and s.fragment != "[*][H]":
+            i = ring.index(s.ring_atom)
+            near = sorted({el[ring[(i + d) % n]] for d in (-1, 1)} - {"C"})
+            for x in near:
+                out.append(f"ring {x} next to the substituted carbon")
+    for s in subs:
+        x = el.get(s.ring_atom)
+        if x not in (None, "C") and s.fragment != "[*][H]" and not s.fragment.startswith("[*]="):
+            group = s.fragment.replace("[*]", "")
+            out.append(f"a group on the ring {x} ({group})")
+    for a in ring:
+        atom = mol.GetAtomWithIdx(a)
+        if atom.GetSymbol() == "N" and any(nb.GetAtomicNum() == 1 for nb in atom.GetNeighbors()):
+            out.append("a ring N–H (its axial/equatorial balance)")
+    cf = [(b.GetBeginAtom(), b.GetEndAtom()) for b in mol.GetBonds()
+          if {b.GetBeginAtom().GetSymbol(), b.GetEndAtom().GetSymbol()} == {"C", "F"}]
+    carbons = [a.GetIdx() if a.GetSymbol() == "C" else b.GetIdx() for a, b in cf]
+    on_ring = sum(1 for c in carbons if c in el)
+    if len(set(carbons)) >= 2 or on_ring >= 2:
+        out.append(f"{len(carbons)} C–F bonds on {len(set(carbons))} carbon(s)")
+    for atom in mol.GetAtoms():
+        if atom.GetSymbol() != "S":
+            continue
+        oxo = sum(1 for b in atom.GetBonds() if b.GetBondType() == Chem.BondType.DOUBLE
+                  and b.GetOtherAtom(atom).GetSymbol() == "O")
+        if oxo == 1:
+            out.append("a sulfoxide (S=O)")
+        elif oxo >= 2:
+            out.append("a sulfone (S(=O)2)")
+    return list(dict.fromkeys(out))
+
+
+def auto_decision(p, calibration) -> dict:
+    """Whether settings.refine: auto refines molecule `p`, and why, in words: {"refine": bool,
+    "reason": str, "reasons": [str]}. Refined when :func:`weak_spots` names anything or when the molecule
+    lies outside the GFN2-xTB calibration's domain (chairqm.calibration.domain; with no calibration for
+    the run's settings nothing lies inside one); a ring without groups has two equal chairs and is not
+    refined."""
+    from . import calibration as cq_cal
+    reasons = weak_spots(p)
+    groups = [s for s in p.substituents if s.fragment != "[*][H]" or p.ring_elements[p.ring.index(s.ring_atom)] != "C"]
+    if not groups and not reasons:
+        return {"refine": False, "reason": "no group on the ring (its two chairs are the same)", "reasons": []}
+    if calibration is None:
+        reasons.append("no GFN2-xTB calibration for these settings (no molecule lies inside a calibrated domain)")
+    else:
+        why = cq_cal.domain(calibration, p.ring_elements, p.substituents)
+        if why:
+            reasons.append(why)
+    if reasons:
+        return {"refine": True, "reason": "; ".join(reasons), "reasons": reasons}
+    return {"refine": False, "reason": f"{INSIDE_DOMAIN} (the group {p.substituents[0].fragment})"
+            if p.substituents else INSIDE_DOMAIN, "reasons": []}
+
+
+def decision_words(decision: dict | None) -> str:
+    """'refined: ring O next to the substituted carbon; ...' / 'not refined: ...' ('' without auto)."""
+    if not decision:
+        return ""
+    return f"{'refined' if decision.get('refine') else 'not refined'}: {decision.get('reason', '')}"

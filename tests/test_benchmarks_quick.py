@@ -21,7 +21,7 @@ SCRIPTS = {
     "avalue.py": [pytest.mark.slow],
 }
 # scripts that rebuild or report data rather than measure (no --quick): tested below and in test_avalues.py
-DATA_SCRIPTS = {"build_avalue_table.py", "avalue_table_diff.py", "calibration_report.py"}
+DATA_SCRIPTS = {"build_avalue_table.py", "avalue_table_diff.py", "calibration_report.py", "refine_auto.py"}
 # a table as benchmarks/_common.table prints it: a header line, then a rule of dash runs separated by two spaces
 RULE = re.compile(r"^-+(  -+)+$", re.M)
 

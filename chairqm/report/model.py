@@ -126,6 +126,19 @@ class Molecule:
     entries: list[Entry] = field(default_factory=list)      # one per temperature, same order
 
     @property
+    def refine_decision(self) -> dict | None:
+        """Under settings.refine: auto, whether this molecule was refined and why (ensemble.json's
+        refine_decision: {"refine", "reason"}); None otherwise."""
+        d = self.ensemble.get("refine_decision") if isinstance(self.ensemble, dict) else None
+        return d if isinstance(d, dict) else None
+
+    @property
+    def refine_skipped(self) -> bool:
+        """Left unrefined on purpose by settings.refine: auto."""
+        d = self.refine_decision
+        return d is not None and not truthy(d.get("refine"))
+
+    @property
     def lead(self):
         """The temperature the headline numbers are quoted at: the one closest to 298.15 K."""
         return min(self.temperatures, key=lambda t: (abs(t - 298.15), t)) if self.temperatures else None
@@ -353,6 +366,8 @@ def refine_settings(run_info: dict, mols: list[Molecule]):
         pass
     if isinstance(block, dict):
         rs.update(block)
+    if block == "auto":
+        rs["auto"] = True
     if recorded:
         rs.update(recorded)
     return rs

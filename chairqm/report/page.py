@@ -127,6 +127,13 @@ def provenance_pairs(run: Run) -> list[tuple[str, str]]:
     return pairs
 
 
+def refine_decision_words(decision: dict | None) -> str:
+    """'refined: ring O next to the substituted carbon; ...' or 'not refined: ...' (settings.refine: auto)."""
+    if not decision:
+        return ""
+    return f"{'refined' if truthy(decision.get('refine')) else 'not refined'}: {decision.get('reason') or 'no reason recorded'}"
+
+
 def refine_view(m: Molecule, rs: dict) -> dict:
     """A molecule's DFT refinement: its settings, counts of single points, the failed ones, the DFT time."""
     rows, info = m.refine_rows, m.refine_info
@@ -246,7 +253,7 @@ def environment() -> jinja2.Environment:
     env.filters.update(FILTERS)
     env.globals.update(
         REFINED_TAG=REFINED_TAG, GFN2_TAG=GFN2_TAG, num=num, missing=missing, truthy=truthy, same_t=same_t,
-        dft_level=dft_level, dft_words=dft_words, additive_paragraph=additive_paragraph,
+        dft_level=dft_level, dft_words=dft_words, refine_decision_words=refine_decision_words, additive_paragraph=additive_paragraph,
         gfn2_paragraph=gfn2_paragraph, no_flag_text=no_flag_text, settings_pairs=settings_pairs,
         provenance_pairs=provenance_pairs, refine_view=refine_view, group_fragments=group_fragments,
         seed_failures=seed_failures, has_dft_column=has_dft_column, n_not_counted=n_not_counted,

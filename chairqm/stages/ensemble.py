@@ -255,12 +255,20 @@ def run(cfg, plan, name, threads=1):
     th = thermo_settings(settings)
     confs = [Conformer(c).attach(folder, th, p.multiplicity)
              for c in fileio.read_json(folder / "thermo.json")["conformers"]]
-    requested = settings.get("refine") is not None
+    # under refine: auto the plan decided whether this molecule is refined; from here on its settings are
+    # those of a run that made the same choice for every molecule (chairqm.refine.molecule_settings)
+    requested = plan.refines(name)
+    decision = plan.refine_decision(name)
+    if decision is not None:
+        from .. import refine as cq_refine
+        settings = cq_refine.molecule_settings(settings, requested)
     refined = requested and apply_refinement(folder, confs)
     usable = [c for c in confs if c["usable"]]
     by_id = {c["conformer"]: c for c in confs}
     out = {"molecule": name, "smiles": p.smiles, "reference": p.reference, "status": "ok", "reason": "",
            "refined": bool(refined), "temperatures": [], "curve": {"temperature_k": CURVE_T, "families": {}}}
+    if decision is not None:
+        out["refine_decision"] = decision
     failed_before = upstream_failure(name)
     if failed_before or not usable:
         out["status"] = "failed"

@@ -13,7 +13,7 @@ from .faults import fault
 from .records import read_xyz
 
 
-def calibrate_rows(rows, settings, cal=False, plan=None) -> str:
+def calibrate_rows(rows, settings, cal=False, plan=None, per_molecule=True) -> str:
     """Calibrated value and 95 % prediction interval for each row's A-value (or, for rings with several
     groups, its chair gap), from the packaged calibration whose settings match this run, and only at the
     calibration's own temperature (chairqm.calibration.applies_at); returns the note for provenance.
@@ -21,6 +21,18 @@ def calibrate_rows(rows, settings, cal=False, plan=None) -> str:
     calibration's out-of-domain spread (chairqm.calibration.widened_outside, interval_half_width_outside);
     without one, or for a case the spread was not measured on, the row stays uncalibrated."""
     from .. import calibration as cq_cal
+    auto = per_molecule and plan is not None and getattr(plan, "refine_auto", None)
+    if auto:
+        # refine: auto: the unrefined molecules take the GFN2-xTB calibration, the refined ones the
+        # calibration of their DFT level (chairqm.refine.molecule_settings), each as its own run would
+        from .. import refine as cq_refine
+        notes = []
+        for refined, label in ((False, "molecules not refined"), (True, "refined molecules")):
+            part = [r for r in rows if r.get("molecule") in auto and bool(auto[r["molecule"]]["refine"]) == refined]
+            if part:
+                notes.append(f"{label}: " + calibrate_rows(part, cq_refine.molecule_settings(settings, refined),
+                                                           plan=plan, per_molecule=False))
+        return "; ".join(notes)
     if cal is False:                   # not looked up by the caller
         cal = cq_cal.load_matching(settings)
     if cal is None:
@@ -147,7 +159,8 @@ def provenance(cfg, plan, calibration_note) -> dict:
             "engine_seconds": round(engine_s, 2), "gradient_calls": calls,
             "engine_seconds_note": "engine time summed over the stages that computed in this folder, including reused records",
             "n_cpus": os.cpu_count(), "calibration": calibration_note,
-            "reference_cache": _cache_note(cfg, plan)}
+            "reference_cache": _cache_note(cfg, plan),
+            **({"refine_auto": getattr(plan, "refine_auto")} if getattr(plan, "refine_auto", None) else {})}
 
 
 def _cache_note(cfg, plan) -> dict:

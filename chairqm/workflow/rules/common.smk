@@ -73,7 +73,32 @@ def reference_ensembles(wc):
 
 
 def refine_outputs(wc):
-    return stage_files("refine", wc.mol) if enabled("refine") else []
+    """The refine outputs the ensemble stage reads: none when this molecule is not refined (no refinement,
+    or refine: auto decided against it in the plan, chairqm.plan.Plan.refines)."""
+    return stage_files("refine", wc.mol) if PLAN.refines(wc.mol) else []
+
+
+def molecule_fingerprint(stage):
+    """fingerprint(stage) per molecule: under refine: auto it also carries the molecule's decision, so a
+    changed decision reruns the stage; without auto it is fingerprint(stage) itself."""
+
+    def fp(wc):
+        decision = PLAN.refine_decision(wc.mol)
+        return fingerprint(stage, **({"refine_auto": decision} if decision is not None else {}))
+
+    return fp
+
+
+def until_files(stage):
+    """What `--until STAGE` asks for: each molecule's first output of STAGE; under refine: auto a molecule
+    not chosen for refinement gives its thermo output for `--until refine` instead."""
+    if not enabled(stage):
+        return []
+    files = []
+    for m in MOLECULES:
+        s = stage if stage != "refine" or PLAN.refines(m) else "thermo"
+        files.append(stage_files(s, m)[0])
+    return files
 
 
 def refine_memory_mb(wildcards, threads):
@@ -92,7 +117,7 @@ def report_inputs(wc):
     for m in MOLECULES:
         files.extend([f"{m}/molecule.json", f"{m}/minima.csv", f"{m}/minima.json", f"{m}/thermo.json", f"{m}/thermo"])
         files.extend(stage_files("ensemble", m))
-        if enabled("refine"):
+        if PLAN.refines(m):
             files.extend(stage_files("refine", m))
     return files
 

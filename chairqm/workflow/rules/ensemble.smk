@@ -15,7 +15,7 @@ rule ensemble:
     output:
         **stage_outputs("ensemble"),
     params:
-        fp=fingerprint("ensemble"),
+        fp=molecule_fingerprint("ensemble"),
     log:
         "{mol}/logs/ensemble.log",
     shell:

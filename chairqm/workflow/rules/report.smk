@@ -8,7 +8,8 @@ rule report:
         **stage_outputs("report"),
     params:
         fp=fingerprint("report", project=CFG.get("project", ""), calibration=cq_calibration.file_fingerprint(),
-                       **({"refused": CFG["refused"]} if CFG.get("refused") else {})),
+                       **({"refused": CFG["refused"]} if CFG.get("refused") else {}),
+                       **({"refine_auto": PLAN.refine_auto} if PLAN.refine_auto else {})),
     log:
         "logs/report.log",
     shell:

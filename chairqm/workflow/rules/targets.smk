@@ -14,4 +14,4 @@ for _stage in cq_stages.until_names():
         name:
             f"until_{_stage}"
         input:
-            [stage_files(_stage, m)[0] for m in MOLECULES] if enabled(_stage) else [],
+            until_files(_stage),
