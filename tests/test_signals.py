@@ -20,7 +20,7 @@ from test_reliability import (KILL_POINTS, MCH, NO_TWIST_BOATS, _alive, _check_r
                               _temporaries, chairqm_run, clean_env, observe, resume_and_compare, run_cmd,
                               running_until, same_records, tail, write_config)
 
-#: A stop "within seconds": chairqm gives the workflow's processes api.STOP_GRACE_S (20 s) after SIGTERM
+#: A stop "within seconds": chairqm gives the workflow's processes chairqm.processes.STOP_GRACE_S (20 s) after SIGTERM
 #: before it kills them; on this machine they stop in 1-3 s. Generous for a loaded 2-core machine.
 STOP_WITHIN_S = 15.0
 
@@ -118,12 +118,12 @@ def test_sigterm_during_a_verbose_run_stops_it_too(setup, tmp_path):
 
 def test_a_lost_sigterm_is_sent_again():
     """A job that misses the first SIGTERM (it arrived between fork and exec, where the parent's handler
-    swallows it) is stopped by the repeat within the grace time, not killed at its end (api._wait_gone)."""
+    swallows it) is stopped by the repeat within the grace time, not killed at its end (processes._wait_gone)."""
     import sys
 
     import psutil
 
-    from chairqm import api
+    from chairqm import processes
     code = ("import signal, time\n"
             "signal.signal(signal.SIGTERM, lambda *a: signal.signal(signal.SIGTERM, signal.SIG_DFL))\n"
             "print('ready', flush=True)\n"
@@ -133,14 +133,14 @@ def test_a_lost_sigterm_is_sent_again():
         assert child.stdout.readline().strip() == "ready"
         child.send_signal(signal.SIGTERM)          # swallowed, as in the fork-exec window
         t0 = time.time()
-        alive = api._wait_gone([psutil.Process(child.pid)], child, 10.0, terminate_new=True)
+        alive = processes._wait_gone([psutil.Process(child.pid)], child, 10.0, terminate_new=True)
         assert alive == [] and time.time() - t0 < 5.0
         assert child.wait(timeout=5) == -signal.SIGTERM
         # without the repeat the same process outlives a short grace time
         late = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
         assert late.stdout.readline().strip() == "ready"
         late.send_signal(signal.SIGTERM)
-        assert api._wait_gone([psutil.Process(late.pid)], late, 2.0) != []
+        assert processes._wait_gone([psutil.Process(late.pid)], late, 2.0) != []
         late.kill()
         late.wait()
     finally:
@@ -156,7 +156,7 @@ def test_snakemake_alone_after_its_jobs_is_not_waited_for_until_the_grace_ends()
 
     import psutil
 
-    from chairqm import api
+    from chairqm import processes
     code = ("import signal, time\n"
             "signal.signal(signal.SIGTERM, signal.SIG_IGN)\n"
             "print('ready', flush=True)\n"
@@ -165,7 +165,7 @@ def test_snakemake_alone_after_its_jobs_is_not_waited_for_until_the_grace_ends()
     try:
         assert child.stdout.readline().strip() == "ready"
         t0 = time.time()
-        alive = api._wait_gone([psutil.Process(child.pid)], child, 30.0, terminate_new=True, alone_s=1.0)
+        alive = processes._wait_gone([psutil.Process(child.pid)], child, 30.0, terminate_new=True, alone_s=1.0)
         assert [p.pid for p in alive] == [child.pid]
         assert 0.9 < time.time() - t0 < 10.0
     finally:
