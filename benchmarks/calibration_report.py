@@ -1,12 +1,13 @@
 """The figures of docs/accuracy.md for one stored calibration: per-group table with leave-one-out
 predictions, statistics, example intervals — printed as Markdown, computed from the calibration file.
 
-    python benchmarks/calibration_report.py [--file chairqm/data/calibration.json] [--refined]
+    python benchmarks/calibration_report.py [--file chairqm/data/calibration.json] [--refined] [--solvent NAME]
         [--low-t OUT_DIR --low-t-temperature 185] [--retable]
         [--outside OUT_DIR [--outside-cases configs/reference-outside.csv] [--save]]
 
-Picks the gas-phase GFN2-xTB calibration (or, with --refined, the one with a DFT refinement key) from the
-list file. Leave-one-out: each used group is predicted by a fit (chairqm.calibration.fit) to the others,
+Picks the gas-phase GFN2-xTB calibration (or, with --refined, the one with a DFT refinement key; with
+--solvent NAME, the one computed in that implicit solvent, ALPB unless written MODEL:NAME) from the list
+file. --media prints one row per stored calibration instead (medium, n, MAE, residual SD, line, coverage). Leave-one-out: each used group is predicted by a fit (chairqm.calibration.fit) to the others,
 with that fit's 95 % prediction interval. The experimental temperature column comes from the package table
 (chairqm/data/avalues.csv): 'low T' for direct low-temperature NMR values (170-200 K), a number where one
 is printed, '—' where the compilation states none.
@@ -40,12 +41,42 @@ sys.path.insert(0, str(ROOT))
 from chairqm import avalues, calibration as cal  # noqa: E402
 
 
-def _pick(items, refined: bool):
+def _pick(items, refined: bool, solvent: str | None = None):
+    """The first calibration with (refined) or without a DFT refinement key, in `solvent` ('alpb:chloroform'
+    style or a bare name for ALPB; None: the gas phase)."""
+    want = _solvent_key(solvent)
     for c in items:
         has_refine = bool((c.settings or {}).get("refine"))
-        if has_refine == refined:
+        if has_refine == refined and cal._norm_solvent((c.settings or {}).get("solvent")) == want:
             return c
-    raise SystemExit("no matching calibration in the file")
+    raise SystemExit(f"no matching calibration in the file ({cal.medium_text(want)}"
+                     f"{', refined' if refined else ''})")
+
+
+def _solvent_key(solvent: str | None) -> str | None:
+    if not solvent or solvent.strip().lower() in ("gas", "gas phase", "none"):
+        return None
+    text = solvent.strip().lower()
+    return text if ":" in text else f"alpb:{text}"
+
+
+def media_table(items) -> str:
+    """One Markdown row per stored calibration: medium, refinement, n, raw MAE, residual SD, slope,
+    intercept, leave-one-out coverage of the 95 % intervals, out-of-domain spread if measured."""
+    out = ["| medium | DFT single points | n | MAE (raw) | residual SD s | slope | intercept | R² | "
+           "leave-one-out coverage (95 %) | out-of-domain τ |", "|---|---|---|---|---|---|---|---|---|---|"]
+    rows = sorted(items, key=lambda c: (bool((c.settings or {}).get("refine")),
+                                        cal._norm_solvent((c.settings or {}).get("solvent")) is not None,
+                                        cal.medium_text((c.settings or {}).get("solvent")).lower()))
+    for c in rows:
+        k = c.settings or {}
+        cov, n = inside_coverage(c)
+        tau = (f"{float(c.outside_domain['excess_sd_kcal']):.2f} (m = {c.outside_domain.get('n')})"
+               if cal.has_outside_spread(c) else "not measured: uncalibrated outside the domain")
+        out.append(f"| {cal.medium_text(k.get('solvent'))} | {k.get('refine') or '—'} | {c.n} | {c.mae_kcal:.2f} | "
+                   f"{c.residual_sd_kcal:.2f} | {c.slope:.3f} | {c.intercept:+.3f} | {c.r_squared:.3f} | "
+                   f"{cov} of {n} | {tau} |")
+    return "\n".join(out)
 
 
 def _short(source: str) -> str:
@@ -340,6 +371,10 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--file", type=Path, default=ROOT / "chairqm" / "data" / "calibration.json")
     ap.add_argument("--refined", action="store_true")
+    ap.add_argument("--solvent", default=None,
+                    help="the calibration of this medium: a solvent name (ALPB) or MODEL:NAME (default gas phase)")
+    ap.add_argument("--media", action="store_true",
+                    help="print one row per stored calibration (medium, n, MAE, residual SD, line, coverage)")
     ap.add_argument("--low-t", type=Path, default=None, help="output folder of a run that includes the low temperature")
     ap.add_argument("--low-t-temperature", type=float, default=185.0)
     ap.add_argument("--retable", action="store_true",
@@ -351,7 +386,10 @@ def main(argv=None) -> int:
     ap.add_argument("--save", action="store_true",
                     help="with --outside: store the measured out-of-domain spread in the calibration file")
     a = ap.parse_args(argv)
-    c = _pick(cal.load_all(a.file), a.refined)
+    if a.media:
+        print(media_table(cal.load_all(a.file)))
+        return 0
+    c = _pick(cal.load_all(a.file), a.refined, a.solvent)
     if a.retable:
         c = retable(c)
     if a.outside is None:

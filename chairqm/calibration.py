@@ -296,15 +296,23 @@ def applies_at(calibration: Calibration, temperature_k: float, tol_k: float = 0.
 
 # ------------------------------------------------------------------------------------------ settings key
 
+# names tblite accepts for the same solvent parameters (GFN2-xTB/ALPB energies of water identical to all
+# digits for each pair, checked with tblite 0.8.0 on this machine): one calibration key for both
+_SOLVENT_ALIASES = {"chcl3": "chloroform", "h2o": "water", "dimethylsulfoxide": "dmso"}
+
+
 def _norm_solvent(solvent):
     if solvent in (None, "", {}):
         return None
     if isinstance(solvent, dict):
         model = str(solvent.get("model", "")).strip().lower()
         name = str(solvent.get("name", "")).strip().lower()
-        return f"{model}:{name}"
+        return f"{model}:{_SOLVENT_ALIASES.get(name, name)}"
     text = str(solvent).strip().lower()
-    return None if text in ("", "none", "null", "gas", "gas phase") else text
+    if text in ("", "none", "null", "gas", "gas phase"):
+        return None
+    model, sep, name = text.partition(":")
+    return f"{model}:{_SOLVENT_ALIASES.get(name, name)}" if sep else text
 
 
 def settings_key(settings: dict | None) -> dict:
@@ -354,9 +362,50 @@ def _norm_refine(block, solvent=None):
 def key_text(key: dict) -> str:
     """A one-line description of a settings key, for reports and messages."""
     k = settings_key(key) if "thermo_model" not in key else key
-    text = (f"{k['method']} with {k['engine']}, {k['solvent'] or 'gas phase'}, "
+    text = (f"{k['method']} with {k['engine']}, {medium_text(k['solvent'])}, "
             f"{k['thermo_model']}, frequency scale {k['frequency_scale']:g}")
     return text + (f", DFT single points {k['refine']}" if k.get("refine") else "")
+
+
+# solvent names shown in capitals in messages (the key keeps the lower-case name the engine is given)
+_SOLVENT_DISPLAY = {"dmso": "DMSO", "dmf": "DMF", "thf": "THF", "chcl3": "CHCl3", "ch2cl2": "CH2Cl2",
+                    "cs2": "CS2", "ccl4": "CCl4", "h2o": "H2O"}
+
+
+def medium_text(solvent) -> str:
+    """A medium in words: 'gas phase' or e.g. 'ALPB chloroform', 'ALPB DMSO' (solvent as a settings block
+    {model, name}, a key string 'alpb:dmso' or None)."""
+    norm = _norm_solvent(solvent)
+    if norm is None:
+        return "gas phase"
+    model, _, name = norm.partition(":")
+    if not name:
+        return norm
+    return f"{model.upper()} {_SOLVENT_DISPLAY.get(name, name)}"
+
+
+def missing_reason(settings: dict | None, path=None) -> str:
+    """Why a run with these settings has no calibration, in words, naming the media that are calibrated.
+
+    For a run whose settings match stored calibrations in everything but the solvent: 'no calibration for
+    ALPB toluene; shipped: gas phase, ALPB chloroform, ...'.  Otherwise the settings that have no
+    calibration and those of the stored ones.  '' if a calibration matches (see :func:`load_matching`).
+    """
+    key = settings_key(settings)
+    stored = [k for k in (settings_key_of(c) for c in load_all(path)) if k is not None]
+    if any(_same_key(k, key) for k in stored):
+        return ""
+    p = Path(path) if path is not None else active_path()
+    where = "shipped" if p == packaged_path() else f"calibrated in {p}"
+    if not stored:
+        return f"no calibration for {key_text(key)}; none {where}"
+    same_rest = [k for k in stored if _same_key({**k, "solvent": key["solvent"]}, key)]
+    if same_rest:
+        media = sorted({medium_text(k["solvent"]) for k in same_rest},
+                       key=lambda m: (m != "gas phase", m.lower()))
+        return f"no calibration for {medium_text(key['solvent'])}; {where}: {', '.join(media)}"
+    return (f"no calibration for {key_text(key)}; {where}: "
+            + "; ".join(dict.fromkeys(key_text(k) for k in stored)))
 
 
 def _same_key(a: dict | None, b: dict | None) -> bool:
@@ -513,9 +562,21 @@ def calibrate_run(out_dir, config, temperature_k: float = REFERENCE_TEMPERATURE_
                   for p in points]
     cfg_name = Path(cfg["_config_path"]).name if cfg.get("_config_path") else "a reference configuration"
     cal.note = (f"fitted on {cal.n} monosubstituted cyclohexanes of {cfg_name}"
+                f" computed in {'the ' if cal.settings.get('solvent') is None else ''}"
+                f"{medium_text(cal.settings.get('solvent'))}"
                 f" at {temperature_k:g} K; experimental values from chairqm/data/avalues.csv"
-                f" (published compilation; {sum(bool(p['from_memory']) for p in used)} of them from memory)")
+                f" (published compilation; {sum(bool(p['from_memory']) for p in used)} of them from memory). "
+                + SAME_EXPERIMENT_NOTE)
     return cal
+
+
+#: what every calibration's note says about its experimental values (the same table for every medium)
+SAME_EXPERIMENT_NOTE = (
+    "The experimental A-values are the same for every medium: one table, mostly low-temperature NMR "
+    "measurements in solution (the solvent often not stated by the compilation; toluene-d8 for methoxy, "
+    "hydroxy and amino), not values measured in this medium; so the line maps values computed in this medium "
+    "onto those experiments, and any real difference between the A-value in this medium and in the "
+    "experiments' solvents is counted as model error in the residual SD and the interval, not measured")
 
 
 # ------------------------------------------------------------------------------------------ presentation

@@ -74,6 +74,8 @@ def answers_table(summary) -> str:
                 cal_text += ", outside its domain: widened"
         elif str(r.get("calibration_domain") or "").startswith("outside"):
             cal_text = "outside its domain"
+        elif str(r.get("calibration_domain") or "").startswith("no calibration"):
+            cal_text = "uncalibrated (see below)"
         tb = r.get("twist_boat_population")
         flag = r.get("flag")
         flagged = flag is True or str(flag).lower() == "true"
@@ -88,6 +90,10 @@ def answers_table(summary) -> str:
             reasons.append(f"  {r['molecule']} ({r['temperature_k']:g} K): {r['flag_reason']}")
     if reasons:
         text += "\nflagged:\n" + "\n".join(dict.fromkeys(reasons))
+    missing = [str(r.get("calibration_domain")) for r in summary.to_dict("records")
+               if r["status"] == "ok" and str(r.get("calibration_domain") or "").startswith("no calibration")]
+    if missing:
+        text += "\nuncalibrated: " + "; ".join(dict.fromkeys(missing))
     return text + "\n(free energies in kcal/mol; chair dG = G(other chair) - G(preferred chair))"
 
 
@@ -173,6 +179,11 @@ def cmd_avalue(args, extra) -> int:
     how = f"{used['method']}, {used['engine']}, {args.solvent or 'gas phase'}"
     print(f"(kcal/mol; A = G(axial chair) - G(equatorial chair); {how}; tabulated values: "
           "chairqm/data/avalues.csv, with their sources)")
+    summary = res.run.summary
+    if "calibration_domain" in summary:
+        missing = [str(v) for v in summary["calibration_domain"].dropna() if str(v).startswith("no calibration")]
+        if missing:
+            print("uncalibrated: " + "; ".join(dict.fromkeys(missing)))
     # the one-line answers earlier versions printed, kept for scripts that read them
     for r in res.table.to_dict("records"):
         if _fmt(r["a_value_kcal"]):
@@ -198,10 +209,11 @@ def cmd_calibrate(args, extra) -> int:
     """Run the reference set, fit computed against experimental A-values, store the calibration."""
     from . import calibration as cq_cal
     config = args.config or default_reference_config()
-    out = Path(args.out or (default_out(config) if args.refine is None
-                            else Path(str(default_out(config)) + "-refined")))
-    if args.refine is not None:
-        config = _with_refinement(config, args.refine, out)
+    solvent = _solvent_arg(args.solvent) if getattr(args, "solvent", None) else None
+    base = str(default_out(config)) + (f"-{solvent['name'].lower()}" if solvent else "")
+    out = Path(args.out or (base if args.refine is None else base + "-refined"))
+    if args.refine is not None or solvent:
+        config = _with_settings(config, out, refine=args.refine, solvent=solvent)
     code = run_workflow(config, out, cores=args.cores, until=None, **_run_options(args, extra))
     if not (out / "summary.csv").is_file():
         return code or 1
@@ -221,11 +233,52 @@ def cmd_calibrate(args, extra) -> int:
     return code
 
 
-def _with_refinement(config_path, refine_text: str, out: Path) -> Path:
-    """Write OUT/calibrate-config.yaml: the configuration with settings.refine set from `refine_text` (a YAML
-    mapping such as '{basis: def2-TZVP}'; '{}' takes every default), and return its path."""
+def _solvent_arg(text: str) -> dict:
+    """`chairqm calibrate --solvent` value → settings.solvent: NAME (ALPB) or MODEL:NAME, e.g. chloroform,
+    alpb:water, gbsa:dmso."""
+    model, sep, name = text.strip().partition(":")
+    if not sep:
+        model, name = "alpb", model
+    model, name = model.strip().lower(), name.strip()
+    if model not in ("alpb", "gbsa") or not name:
+        raise ChairqmError(f"--solvent {text!r}: give a solvent name (ALPB) or MODEL:NAME with MODEL alpb or gbsa, "
+                           "e.g. --solvent chloroform or --solvent alpb:water")
+    return {"model": model, "name": name}
+
+
+def _with_settings(config_path, out: Path, refine: str | None = None, solvent: dict | None = None) -> Path:
+    """Write OUT/calibrate-config.yaml: the configuration with settings.refine set from `refine` (a YAML
+    mapping such as '{basis: def2-TZVP}'; '{}' takes every default) and/or settings.solvent set to `solvent`
+    ({model, name}); return its path."""
     import yaml
     from . import fileio
+    raw = yaml.safe_load(Path(config_path).read_text())
+    if not isinstance(raw, dict):
+        raise ChairqmError(f"{config_path}: not a configuration mapping")
+    raw["settings"] = dict(raw.get("settings") or {})
+    what = []
+    if refine is not None:
+        raw["settings"]["refine"] = _refine_block(refine)
+        what.append(f"settings.refine = {raw['settings']['refine']!r} (--refine)")
+    if solvent:
+        raw["settings"]["solvent"] = dict(solvent)
+        what.append(f"settings.solvent = {solvent!r} (--solvent)")
+    out.mkdir(parents=True, exist_ok=True)
+    target = out / "calibrate-config.yaml"
+    fileio.write_text(target, f"# {config_path} with {' and '.join(what)} (chairqm calibrate)\n"
+                      + yaml.safe_dump(raw, sort_keys=False))
+    return target
+
+
+def _with_refinement(config_path, refine_text: str, out: Path) -> Path:
+    """Write OUT/calibrate-config.yaml: the configuration with settings.refine set from `refine_text`."""
+    return _with_settings(config_path, out, refine=refine_text)
+
+
+def _refine_block(refine_text: str) -> dict:
+    """`--refine` text → the settings.refine mapping (a YAML mapping such as '{basis: def2-TZVP}'; '' or
+    '{}' takes every default)."""
+    import yaml
     try:
         block = yaml.safe_load(refine_text) if refine_text.strip() else {}
     except yaml.YAMLError as exc:
@@ -236,16 +289,7 @@ def _with_refinement(config_path, refine_text: str, out: Path) -> Path:
     if not isinstance(block, dict):
         raise ChairqmError(f"--refine {refine_text!r} must be a mapping of settings.refine keys, e.g. "
                            "--refine '{functional: r2SCAN}'")
-    raw = yaml.safe_load(Path(config_path).read_text())
-    if not isinstance(raw, dict):
-        raise ChairqmError(f"{config_path}: not a configuration mapping")
-    raw.setdefault("settings", {})
-    raw["settings"] = dict(raw["settings"] or {}, refine=block)
-    out.mkdir(parents=True, exist_ok=True)
-    target = out / "calibrate-config.yaml"
-    fileio.write_text(target, f"# {config_path} with settings.refine = {block!r} (chairqm calibrate --refine)\n"
-                      + yaml.safe_dump(raw, sort_keys=False))
-    return target
+    return block
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -294,6 +338,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="calibrate DFT-refined values: add settings.refine to the configuration (no value: the "
                         "defaults; or a YAML mapping such as '{basis: def2-TZVP}'); output default "
                         "results/<config name>-refined")
+    k.add_argument("--solvent", metavar="NAME",
+                   help="calibrate in an implicit solvent: add settings.solvent to the configuration (NAME for "
+                        "ALPB, or MODEL:NAME, e.g. chloroform, alpb:water); output default "
+                        "results/<config name>-<solvent name>")
     return ap
 
 

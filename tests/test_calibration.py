@@ -232,7 +232,10 @@ def test_shipped_calibration_has_the_default_refinement_level():
 
 
 def test_shipped_calibration_does_not_match_other_settings():
-    assert cal.load_matching({**_defaults(), "solvent": {"model": "alpb", "name": "water"}}) is None
+    # ALPB water, chloroform and DMSO ship (tests/test_calibration_media.py); toluene and GBSA do not
+    assert cal.load_matching({**_defaults(), "solvent": {"model": "alpb", "name": "toluene"}}) is None
+    assert cal.load_matching({**_defaults(), "solvent": {"model": "gbsa", "name": "water"}}) is None
+    assert cal.load_matching({**_defaults(), "thermo": {"model": "rrho"}}) is None
 
 
 def test_calibrate_run_on_a_small_finished_run(tmp_path):

@@ -36,9 +36,12 @@ def calibrate_rows(rows, settings, cal=False, plan=None, per_molecule=True) -> s
     if cal is False:                   # not looked up by the caller
         cal = cq_cal.load_matching(settings)
     if cal is None:
-        return ("no calibration matches these settings (method, engine, solvent, thermochemistry"
-                + (", DFT refinement level" if settings.get("refine") is not None else "")
-                + "): values are uncalibrated")
+        # say why in words on every row (e.g. "no calibration for ALPB toluene; shipped: gas phase, ...")
+        why = cq_cal.missing_reason(settings) or "no calibration matches these settings"
+        for r in rows:
+            if r.get("status") == "ok":
+                r["calibration_domain"] = why
+        return f"{why}: values are uncalibrated"
     skipped = set()
     outside = widened = 0
     for r in rows:
