@@ -16,18 +16,15 @@ from pathlib import Path
 
 import pytest
 
-from test_reliability import (KILL_POINTS, MCH, NO_TWIST_BOATS, _alive, _check_readable,  # noqa: E402
+from test_reliability import (KILL_POINTS, MCH, NO_TWIST_BOATS, PAUSE_REPORT, _alive, _check_readable,  # noqa: E402
                               _temporaries, chairqm_run, clean_env, observe, resume_and_compare, run_cmd,
                               running_until, same_records, tail, write_config)
 
-#: A stop "within seconds": chairqm gives the workflow's processes chairqm.processes.STOP_GRACE_S (20 s) after SIGTERM
-#: before it kills them; on this machine they stop in 1-3 s. Generous for a loaded 2-core machine.
+#: A stop "within seconds": chairqm gives the workflow's processes chairqm.processes.STOP_GRACE_S (20 s)
+#: after SIGTERM before it kills them; on this machine they stop in 1-3 s. Generous for a loaded 2-core
+#: machine.
 STOP_WITHIN_S = 15.0
 
-#: The report job waits 3 s before it computes (chairqm.stages.faults), so that the third interrupt point
-#: ("report: job started") is hit however slowly this test's polling runs on a loaded machine: with warm
-#: starts the report of one small molecule takes ~1 s.
-PAUSE_REPORT = {"CHAIRQM_FAULTS": '{"pause": ["report"]}'}
 
 # (kill point as in the SIGKILL test, the signal, sent to the whole process group or to chairqm alone)
 INTERRUPTS = [
