@@ -4,11 +4,10 @@ import json
 import subprocess
 import sys
 from html.parser import HTMLParser
-from pathlib import Path
 
 import pandas as pd
 import pytest
-import yaml
+from _runs import config_path, read_summary, run_config
 
 from chairqm.units import KCAL_PER_HARTREE
 
@@ -24,23 +23,15 @@ MOLECULES = [
 
 @pytest.fixture(scope="module")
 def run(tmp_path_factory):
-    root = tmp_path_factory.mktemp("e2e")
-    cfg = root / "e2e.yaml"
-    cfg.write_text(yaml.safe_dump({"project": "end-to-end test", "molecules": MOLECULES,
-                                   "settings": {"temperatures_k": [298.15, 350.0]}}))
-    out = root / "out"
-    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "2"],
-                          capture_output=True, text=True)
+    out = tmp_path_factory.mktemp("e2e") / "out"
+    proc = run_config({"project": "end-to-end test", "molecules": MOLECULES,
+                       "settings": {"temperatures_k": [298.15, 350.0]}}, out, timeout=None)
     assert proc.returncode == 0, proc.stderr[-3000:]
     return out
 
 
-def summary(out):
-    return pd.read_csv(out / "summary.csv", keep_default_na=False)
-
-
 def row(out, mol, t=298.15):
-    df = summary(out)
+    df = read_summary(out)
     r = df[(df.molecule == mol) & (df.temperature_k == t)]
     assert len(r) == 1
     return r.iloc[0]
@@ -144,14 +135,11 @@ def test_hessians_only_where_they_decide_the_answer(tmp_path):
     import shutil
     outs = {}
     for label, window in (("all", "all"), ("chairs", 0)):
-        cfg = tmp_path / f"{label}.yaml"
-        cfg.write_text(yaml.safe_dump({"molecules": [{"name": "cyano", "smiles": "N#CC1CCCCC1"}],
-                                       "settings": {"thermo": {"frequency_window_kcal": window}}}))
         out = tmp_path / label
         if outs:
             shutil.copytree(outs["all"], out)       # the same minima; Hessians come from the cache
-        proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out),
-                               "--cores", "2"], capture_output=True, text=True)
+        proc = run_config({"molecules": [{"name": "cyano", "smiles": "N#CC1CCCCC1"}],
+                           "settings": {"thermo": {"frequency_window_kcal": window}}}, out, timeout=None)
         assert proc.returncode == 0, proc.stderr[-3000:]
         outs[label] = out
     full = pd.read_csv(outs["all"] / "cyano" / "conformers.csv", keep_default_na=False).set_index("conformer")
@@ -205,9 +193,8 @@ def test_report_is_self_contained(run):
 
 
 def test_rerun_with_nothing_changed_computes_nothing(run):
-    cfg = run.parent / "e2e.yaml"
-    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(run), "--",
-                           "--dry-run"], capture_output=True, text=True)
+    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(config_path(run)), "--out", str(run),
+                           "--", "--dry-run"], capture_output=True, text=True)
     assert proc.returncode == 0, proc.stderr[-2000:]
     assert "Nothing to be done" in proc.stdout + proc.stderr
 
@@ -240,18 +227,14 @@ CCSDT_CBS = {"mch": (1.75, 0.3), "fluoro-thp": (-2.45, 0.6), "methoxy-thp": (-1.
 
 @pytest.fixture(scope="module")
 def refined_run(tmp_path_factory):
-    root = tmp_path_factory.mktemp("refine")
-    cfg = root / "refine.yaml"
-    cfg.write_text(yaml.safe_dump({
+    out = tmp_path_factory.mktemp("refine") / "out"
+    proc = run_config({
         "project": "refinement against CCSD(T)/CBS",
         "molecules": [{"name": "mch", "smiles": "CC1CCCCC1"},
                       {"name": "fluoro-thp", "smiles": "F[C@@H]1CCCCO1"},
                       {"name": "methoxy-thp", "smiles": "CO[C@@H]1CCCCO1"}],
         # window 0: the lowest conformer of each chair family only, which is what the comparison needs
-        "settings": {"seeds": {"twist_boats": False}, "refine": {"window_kcal": 0.0}}}))
-    out = root / "out"
-    proc = subprocess.run([sys.executable, "-m", "chairqm.cli", "run", str(cfg), "--out", str(out), "--cores", "2"],
-                          capture_output=True, text=True)
+        "settings": {"seeds": {"twist_boats": False}, "refine": {"window_kcal": 0.0}}}, out, timeout=None)
     assert proc.returncode == 0, proc.stderr[-3000:]
     return out
 
@@ -276,7 +259,7 @@ def test_refined_chair_energy_gap_matches_ccsdt_cbs(refined_run, mol):
 
 
 def test_refined_run_writes_both_levels_side_by_side(refined_run):
-    s = summary(refined_run)
+    s = read_summary(refined_run)
     assert set(s["refined"].astype(str)) == {"True"}
     assert {"chair_dg_unrefined_kcal", "a_value_unrefined_kcal"} <= set(s.columns)
     r = s[s["molecule"] == "mch"].iloc[0]
