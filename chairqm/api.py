@@ -147,7 +147,11 @@ class CheckResult:
         rows = [("molecule", "atoms", "basis functions", "s per single point", "integrals in memory")]
         total = 0.0
         notes = set()
+        skipped = []
         for m in self.plan.molecules:
+            if not self.plan.refines(m.name):     # refine: auto decided against it
+                skipped.append(m.name)
+                continue
             e = refine.estimate(rs, [a.GetSymbol() for a in m.mol.GetAtoms()])
             total += e["seconds"]
             mem = f"{e['memory_mb']:.0f} MB" + (" (out of core)" if e["out_of_core"] else "")
@@ -162,6 +166,8 @@ class CheckResult:
                 f"{k * total / 3600:.1f} CPU hours in all; each worker may use up to {refine.worker_memory_cap_mb(rs)} "
                 f"MB (max_memory_mb {rs['max_memory_mb']} + {refine.WORKER_OVERHEAD_MB}), beyond which its single "
                 "point fails on its own")
+        if skipped:
+            notes.add(f"refine: auto leaves out {len(skipped)} molecule(s): {', '.join(skipped)}")
         return text + "".join(f"\n{n}" for n in sorted(notes))
 
     @property

@@ -130,6 +130,15 @@ def test_the_plan_decides_once_per_molecule():
     assert not none.refines("mch") and not none.refines("me-oxane")
 
 
+def test_the_dft_estimate_counts_only_the_molecules_auto_refines():
+    from chairqm import api
+    p = plan.make_plan(_cfg("auto"))
+    text = api.CheckResult(_cfg("auto"), p).refine_estimate
+    table = text.split("about ")[0]
+    assert re.search(r"^me-oxane\s", table, re.M) and not re.search(r"^mch\s", table, re.M)
+    assert "refine: auto leaves out 1 molecule(s): mch" in text
+
+
 def _dry_run(tmp_path, refine_block, *extra):
     cfg = tmp_path / "auto.yaml"
     c = _cfg(refine_block)
