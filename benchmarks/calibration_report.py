@@ -76,6 +76,24 @@ def media_table(items) -> str:
         out.append(f"| {cal.medium_text(k.get('solvent'))} | {k.get('refine') or '—'} | {c.n} | {c.mae_kcal:.2f} | "
                    f"{c.residual_sd_kcal:.2f} | {c.slope:.3f} | {c.intercept:+.3f} | {c.r_squared:.3f} | "
                    f"{cov} of {n} | {tau} |")
+    # the computed values side by side (unrefined calibrations): what the medium changes, against one experiment
+    plain = [c for c in rows if not (c.settings or {}).get("refine")]
+    names = [cal.medium_text((c.settings or {}).get("solvent")) for c in plain]
+    values = [{p["group"]: p["computed_kcal"] for p in c.points if p.get("used") == "used"} for c in plain]
+    exp = {}
+    for c in plain:
+        exp.update({p["group"]: p["experimental_kcal"] for p in c.points if p.get("used") == "used"})
+    out += ["", "| group | experimental | " + " | ".join(f"computed, {m}" for m in names) + " |",
+            "|---|---|" + "---|" * len(names)]
+    for g in sorted(exp, key=lambda g: exp[g]):
+        out.append(f"| {g} | {exp[g]:.2f} | " + " | ".join("—" if g not in v else f"{v[g]:.2f}" for v in values) + " |")
+    gas = next((v for c, v in zip(plain, values) if not (c.settings or {}).get("solvent")), None)
+    if gas:
+        for m, v in zip(names, values):
+            d = np.array([v[g] - gas[g] for g in v if g in gas])
+            if m != "gas phase" and d.size:
+                out.append(f"\n{m} − gas phase, computed: mean {d.mean():+.2f}, range {d.min():+.2f} to {d.max():+.2f} "
+                           f"kcal/mol over {d.size} groups.")
     return "\n".join(out)
 
 
