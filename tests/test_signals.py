@@ -11,6 +11,7 @@ import fcntl
 import os
 import signal
 import subprocess
+import sys
 import time
 from pathlib import Path
 
@@ -70,6 +71,18 @@ def _run_lock_is_free(out: Path) -> bool:
         return True
 
 
+def _python_child(code: str) -> subprocess.Popen:
+    """Start a Python child running `code` and return it once it has printed 'ready' (its signal handling
+    is in place by then); a child that prints anything else is killed and the test fails."""
+    child = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    line = child.stdout.readline().strip()
+    if line != "ready":
+        child.kill()
+        child.wait()
+    assert line == "ready", f"the child printed {line!r} instead of 'ready'"
+    return child
+
+
 @pytest.mark.slow
 def test_sigterm_and_sigint_stop_the_run_and_the_rerun_resumes(setup, tmp_path):
     root, cfg, reference = setup
@@ -116,8 +129,6 @@ def test_sigterm_during_a_verbose_run_stops_it_too(setup, tmp_path):
 def test_a_lost_sigterm_is_sent_again():
     """A job that misses the first SIGTERM (it arrived between fork and exec, where the parent's handler
     swallows it) is stopped by the repeat within the grace time, not killed at its end (processes._wait_gone)."""
-    import sys
-
     import psutil
 
     from chairqm import processes
@@ -125,17 +136,15 @@ def test_a_lost_sigterm_is_sent_again():
             "signal.signal(signal.SIGTERM, lambda *a: signal.signal(signal.SIGTERM, signal.SIG_DFL))\n"
             "print('ready', flush=True)\n"
             "time.sleep(60)\n")
-    child = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    child = _python_child(code)
     try:
-        assert child.stdout.readline().strip() == "ready"
         child.send_signal(signal.SIGTERM)          # swallowed, as in the fork-exec window
         t0 = time.time()
         alive = processes._wait_gone([psutil.Process(child.pid)], child, 10.0, terminate_new=True)
         assert alive == [] and time.time() - t0 < 5.0
         assert child.wait(timeout=5) == -signal.SIGTERM
         # without the repeat the same process outlives a short grace time
-        late = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
-        assert late.stdout.readline().strip() == "ready"
+        late = _python_child(code)
         late.send_signal(signal.SIGTERM)
         assert processes._wait_gone([psutil.Process(late.pid)], late, 2.0) != []
         late.kill()
@@ -149,8 +158,6 @@ def test_a_lost_sigterm_is_sent_again():
 def test_snakemake_alone_after_its_jobs_is_not_waited_for_until_the_grace_ends():
     """Once every job has ended, a Snakemake that stays asleep is given SNAKEMAKE_ALONE_S, not the whole
     STOP_GRACE_S (seen once in a few dozen stops; it runs with --nolock, so killing it leaves no lock)."""
-    import sys
-
     import psutil
 
     from chairqm import processes
@@ -158,9 +165,8 @@ def test_snakemake_alone_after_its_jobs_is_not_waited_for_until_the_grace_ends()
             "signal.signal(signal.SIGTERM, signal.SIG_IGN)\n"
             "print('ready', flush=True)\n"
             "time.sleep(60)\n")
-    child = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    child = _python_child(code)
     try:
-        assert child.stdout.readline().strip() == "ready"
         t0 = time.time()
         alive = processes._wait_gone([psutil.Process(child.pid)], child, 30.0, terminate_new=True, alone_s=1.0)
         assert [p.pid for p in alive] == [child.pid]
