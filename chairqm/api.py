@@ -48,10 +48,9 @@ class WorkflowError(ChairqmError):
 # the result objects live in chairqm.results; these names stay importable from here
 from .results import (TEXT_COLUMNS, AValueResult, AValueTable, MoleculeResult, RunResult,  # noqa: E402,F401
                       _read_csv)
-# the processes of a run (re-exported: tests and the command line reach them here)
-from .processes import (SNAKEMAKE_ALONE_S, STOP_GRACE_S, Interrupted, _cancel_slurm_jobs,  # noqa: E402,F401
-                        _executor, _no_file, _signals_as_interrupts, _start_warm_starter, _stop_warm_starter,
-                        _stop_workflow, _wait_gone)
+# the processes of a run (chairqm.processes); Interrupted is public and stays importable from here
+from .processes import (Interrupted, _executor, _no_file, _signals_as_interrupts,  # noqa: E402
+                        _start_warm_starter, _stop_warm_starter, _stop_workflow)
 
 
 def _as_config_path(config, out: Path | None) -> Path:

@@ -265,11 +265,11 @@ def test_a_stopped_cluster_run_names_the_rule_log_and_the_slurm_job_log(tmp_path
 
 
 def test_the_executor_of_a_run_is_read_from_the_arguments_and_the_profile():
-    from chairqm import api
-    assert api._executor(api.resolve_profiles(["--profile", "slurm"])) == "slurm"
-    assert api._executor(api.resolve_profiles(["--profile", "laptop"])) == "local"
-    assert api._executor(api.resolve_profiles(["--profile", "slurm", "--executor", "local"])) == "local"
-    assert api._executor(["--executor=slurm"]) == "slurm" and api._executor([]) == "local"
+    from chairqm import api, processes
+    assert processes._executor(api.resolve_profiles(["--profile", "slurm"])) == "slurm"
+    assert processes._executor(api.resolve_profiles(["--profile", "laptop"])) == "local"
+    assert processes._executor(api.resolve_profiles(["--profile", "slurm", "--executor", "local"])) == "local"
+    assert processes._executor(["--executor=slurm"]) == "slurm" and processes._executor([]) == "local"
 
 
 def _jobs_in(out: Path, cluster, states="PENDING,RUNNING,COMPLETING") -> list[str]:
