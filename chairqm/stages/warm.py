@@ -25,6 +25,7 @@ import signal
 import socket
 import struct
 import sys
+import time
 
 SOCKET_ENV = "CHAIRQM_WARM_SOCKET"
 #: True in a stage job forked by the starter (its worker pools may then fork too: records.worker_context)
@@ -227,7 +228,6 @@ def _watch(conn, pid: int) -> None:
                     except OSError:
                         pass
         else:
-            import time
             time.sleep(0.1)
     if os.WIFSIGNALED(status):
         line = f"signal {os.WTERMSIG(status)}\n"
