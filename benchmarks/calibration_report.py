@@ -64,18 +64,21 @@ def media_table(items) -> str:
     """One Markdown row per stored calibration: medium, refinement, n, raw MAE, residual SD, slope,
     intercept, leave-one-out coverage of the 95 % intervals, out-of-domain spread if measured."""
     out = ["| medium | DFT single points | n | MAE (raw) | residual SD s | slope | intercept | R² | "
-           "leave-one-out coverage (95 %) | out-of-domain τ |", "|---|---|---|---|---|---|---|---|---|---|"]
+           "t·s / q (kcal/mol) | leave-one-out coverage (95 %), t·s alone → max(t·s, q) | out-of-domain τ |",
+           "|---|---|---|---|---|---|---|---|---|---|---|"]
     rows = sorted(items, key=lambda c: (bool((c.settings or {}).get("refine")),
                                         cal._norm_solvent((c.settings or {}).get("solvent")) is not None,
                                         cal.medium_text((c.settings or {}).get("solvent")).lower()))
     for c in rows:
         k = c.settings or {}
         cov, n = inside_coverage(c)
+        cov0, _ = inside_coverage(c, normal_only=True)
+        q = "—" if c.loo_scale_kcal is None else f"{c.loo_scale_kcal:.2f}"
         tau = (f"{float(c.outside_domain['excess_sd_kcal']):.2f} (m = {c.outside_domain.get('n')})"
                if cal.has_outside_spread(c) else "not measured: uncalibrated outside the domain")
         out.append(f"| {cal.medium_text(k.get('solvent'))} | {k.get('refine') or '—'} | {c.n} | {c.mae_kcal:.2f} | "
                    f"{c.residual_sd_kcal:.2f} | {c.slope:.3f} | {c.intercept:+.3f} | {c.r_squared:.3f} | "
-                   f"{cov} of {n} | {tau} |")
+                   f"{c.t_quantile * c.residual_sd_kcal:.2f} / {q} | {cov0} → {cov} of {n} | {tau} |")
     # the computed values side by side (unrefined calibrations): what the medium changes, against one experiment
     plain = [c for c in rows if not (c.settings or {}).get("refine")]
     names = [cal.medium_text((c.settings or {}).get("solvent")) for c in plain]
@@ -171,6 +174,19 @@ def report(c, low_t_summary=None, low_t_temperature=None) -> str:
     out.append(f"| leave-one-out, calibrated: MAE / RMSE | {np.abs(e).mean():.3f} / {math.sqrt((e ** 2).mean()):.3f} kcal/mol |")
     out.append(f"| leave-one-out coverage of the 95 % intervals | {covered} of {n}"
                f"{' (' + ', '.join(outside) + ' outside)' if outside else ''} |")
+    q = "— (too few points)" if c.loo_scale_kcal is None else f"{c.loo_scale_kcal:.3f}"
+    out.append(f"| interval scale: t·s (normal theory) / q (distribution-free, leave-one-out) / used, the larger | "
+               f"{c.t_quantile * c.residual_sd_kcal:.3f} / {q} / {c.scale():.3f} kcal/mol |")
+    miss0 = []
+    for i in range(n):
+        mask = np.arange(n) != i
+        f = cal.fit(x[mask], y[mask])
+        f.interval_scale_kcal = None
+        _, lo, hi = cal.apply(f, x[i])
+        if not lo <= y[i] <= hi:
+            miss0.append(pts[i]["group"])
+    out.append(f"| leave-one-out coverage with t·s alone (the normal-theory interval) | {n - len(miss0)} of {n}"
+               f"{' (' + ', '.join(miss0) + ' outside)' if miss0 else ''} |")
     out.append("")
     out.append(f"x̄ = {c.x_mean_kcal:.3f} kcal/mol, Sxx = {c.sxx_kcal2:.2f} kcal²/mol²; half-width at x̄ "
                f"{cal.interval_half_width(c, c.x_mean_kcal):.2f}, at the largest computed value ({x.max():.2f}) "
@@ -323,16 +339,21 @@ def outside_coverage(c, pts):
     return sum(x[2] for x in per), len(used), per
 
 
-def inside_coverage(c):
+def inside_coverage(c, normal_only: bool = False):
     """Leave-one-out coverage of the in-domain 95 % intervals on the calibration's own points (each point
-    predicted by a fit to the others).  Returns (covered, n)."""
+    predicted by a fit to the others, whose interval scale comes from those others alone).  With
+    `normal_only` the intervals use t·s alone (the normal-theory interval, without chairqm.calibration.loo_scale).
+    Returns (covered, n)."""
     pts = [p for p in c.points if p.get("used") == "used"]
     x = np.array([p["computed_kcal"] for p in pts], dtype=float)
     y = np.array([p["experimental_kcal"] for p in pts], dtype=float)
     covered = 0
     for i in range(len(pts)):
         mask = np.arange(len(pts)) != i
-        _, lo, hi = cal.apply(cal.fit(x[mask], y[mask]), x[i])
+        f = cal.fit(x[mask], y[mask])
+        if normal_only:
+            f.interval_scale_kcal = None
+        _, lo, hi = cal.apply(f, x[i])
         covered += bool(lo <= y[i] <= hi)
     return covered, len(pts)
 
@@ -403,7 +424,17 @@ def main(argv=None) -> int:
     ap.add_argument("--outside-cases", type=Path, default=OUTSIDE_CASES)
     ap.add_argument("--save", action="store_true",
                     help="with --outside: store the measured out-of-domain spread in the calibration file")
+    ap.add_argument("--refresh-intervals", action="store_true",
+                    help="compute the distribution-free interval scale (chairqm.calibration.loo_scale) of every "
+                         "stored calibration from its own points and store it (the lines are unchanged)")
     a = ap.parse_args(argv)
+    if a.refresh_intervals:
+        from chairqm import fileio
+        items = [cal.refresh_interval_scale(c) for c in cal.load_all(a.file)]
+        fileio.write_json(a.file, [c.to_dict() for c in items])
+        print(media_table(items))
+        print(f"\nstored in {a.file}")
+        return 0
     if a.media:
         print(media_table(cal.load_all(a.file)))
         return 0
@@ -420,8 +451,7 @@ def main(argv=None) -> int:
     if a.save:
         c.outside_domain = {**spread, "source_set": OUTSIDE_CONFIG, "cases": str(a.outside_cases.name),
                             "quantity": "G(chair with the named group axial) - G(chair with it equatorial), 298.15 K",
-                            "formula": "half-width = t(0.975, m-1) * sqrt(s^2 (1 + 1/n + (x0 - xbar)^2 / Sxx) "
-                                       "+ tau^2), tau = sqrt(max(0, RMS_out^2 - s^2))",
+                            "formula": cal.OUTSIDE_FORMULA,
                             "created": time.strftime("%Y-%m-%d"),
                             "points": [{k: v for k, v in p.items() if k != "conditions"} for p in pts]}
         cal.save(c, a.file)

@@ -20,7 +20,9 @@ A calibration compares the A-values a run computed for monosubstituted cyclohexa
   the ordinary-least-squares prediction interval for a single new observation (N. R. Draper and
   H. Smith, Applied Regression Analysis, 3rd ed., Wiley 1998, §3.1; D. C. Montgomery, E. A. Peck and
   G. G. Vining, Introduction to Linear Regression Analysis, 5th ed., Wiley 2012, eq. 2.45), with
-  the Student t quantile from scipy.stats.t.
+  the Student t quantile from scipy.stats.t — widened, where the fitted points say the residuals have
+  heavier tails than a normal distribution, to the distribution-free scale of :func:`loo_scale`
+  (the interval's factor t·s is replaced by max(t·s, q), q from the leave-one-out residuals).
 
 Calibrations are keyed by the settings that change computed free energies (:func:`settings_key`:
 method, engine, solvent, thermochemistry model, frequency scale and, for refined runs, the DFT level).  The package ships a list of them
@@ -46,6 +48,9 @@ CALIBRATION_FILE = "calibration.json"
 CONFIDENCE = 0.95
 REFERENCE_TEMPERATURE_K = 298.15
 PREDICTS = "experimental = intercept + slope * computed"
+# the widened interval outside the domain, in words stored beside each measured spread
+OUTSIDE_FORMULA = ("half-width = sqrt(h_in(x0)^2 + (t(0.975, m-1) * tau)^2), h_in(x0) = max(t(0.975, n-2) * s, q) * "
+                   "sqrt(1 + 1/n + (x0 - xbar)^2 / Sxx), tau = sqrt(max(0, RMS_out^2 - s^2))")
 # the normalised settings a calibration is keyed by (from provenance.CALIBRATION_SETTINGS; the
 # defaults behind them are the configuration schema's, chairqm.config.settings_defaults)
 KEY_NAMES = ("engine", "method", "solvent", "thermo_model", "frequency_scale")
@@ -76,6 +81,13 @@ class Calibration:
     created: str = ""
     note: str = ""
     outside_domain: dict = field(default_factory=dict)  # out-of-domain error (outside_spread); {} if not measured
+    loo_scale_kcal: float | None = None   # q of loo_scale(); None: too few points for it (or an old file)
+    interval_scale_kcal: float | None = None  # max(t·s, q): the factor of sqrt(1 + 1/n + ...); None: t·s
+
+    def scale(self) -> float:
+        """The factor of sqrt(1 + 1/n + (x0 − x̄)²/Sxx) in the in-domain half-width: max(t·s, q)."""
+        normal = self.t_quantile * self.residual_sd_kcal
+        return normal if self.interval_scale_kcal is None else max(normal, float(self.interval_scale_kcal))
 
     def table(self):
         """The per-molecule points as a pandas DataFrame."""
@@ -139,22 +151,71 @@ def fit(computed, experimental, settings: dict | None = None, confidence: float 
         rev = {"intercept": a2, "slope": b2, "residual_sd_kcal": math.sqrt(float((res2 ** 2).sum()) / (n - 2)),
                "model": "computed = intercept + slope * experimental"}
     t = float(stats.t.ppf(0.5 + confidence / 2.0, n - 2))
+    q = loo_scale(x, y, confidence)
     return Calibration(settings=dict(settings or {}), n=n, mae_kcal=float(np.abs(err).mean()),
                        mse_kcal=float(err.mean()), rmse_kcal=float(math.sqrt((err ** 2).mean())),
                        intercept=float(a), slope=float(b), residual_sd_kcal=s, x_mean_kcal=xm, sxx_kcal2=sxx,
                        t_quantile=t, r_squared=float(r2), reverse_fit=rev, confidence=float(confidence),
-                       created=time.strftime("%Y-%m-%dT%H:%M:%S%z"))
+                       created=time.strftime("%Y-%m-%dT%H:%M:%S%z"), loo_scale_kcal=q,
+                       interval_scale_kcal=t * s if q is None else max(t * s, q))
+
+
+def loo_scale(computed, experimental, confidence: float = CONFIDENCE) -> float | None:
+    """Distribution-free scale q of the prediction interval, from the leave-one-out residuals of the line.
+
+    For each point i the line fitted without it misses by e_i = r_i / (1 − h_i) (r_i the residual of the
+    full fit, h_i = 1/n + (x_i − x̄)²/Sxx its leverage; the closed form of ordinary least squares,
+    Draper and Smith 1998, §8), with variance σ²/(1 − h_i); the score |e_i|·sqrt(1 − h_i) puts every
+    point on the scale of σ.  q is the ⌈c(n + 1)⌉-th smallest score, the quantile that makes a conformal
+    prediction interval ŷ0 ± q·sqrt(1 + h0) cover a new exchangeable point with probability at least c
+    whatever the shape of the error distribution (V. Vovk, A. Gammerman and G. Shafer, Algorithmic
+    Learning in a Random World, Springer 2005; R. F. Barber, E. J. Candès, A. Ramdas and R. J.
+    Tibshirani, Ann. Statist. 49 (2021) 486, both from memory).  With normal residuals q ≈ t·s; a few
+    large group-specific method errors (heavy tails) make it larger.  None when n is too small for the
+    quantile (⌈c(n + 1)⌉ > n: 18 points or fewer at 95 %).
+    """
+    x = np.asarray(computed, dtype=float).ravel()
+    y = np.asarray(experimental, dtype=float).ravel()
+    n = int(x.size)
+    k = math.ceil(float(confidence) * (n + 1) - 1e-9)
+    if n < 3 or k > n:
+        return None
+    xm = float(x.mean())
+    sxx = float(((x - xm) ** 2).sum())
+    b = float(((x - xm) * (y - y.mean())).sum()) / sxx
+    a = float(y.mean()) - b * xm
+    h = 1.0 / n + (x - xm) ** 2 / sxx
+    scores = np.abs(y - (a + b * x)) / np.sqrt(1.0 - h)
+    return float(np.sort(scores)[k - 1])
+
+
+def refresh_interval_scale(calibration: Calibration) -> Calibration:
+    """A stored calibration with :func:`loo_scale` computed from its own used points (for files written
+    before the scale existed); raises ChairqmError if the points no longer give the stored line."""
+    pts = [p for p in calibration.points if p.get("used", "used") == "used"]
+    x = [p["computed_kcal"] for p in pts]
+    y = [p["experimental_kcal"] for p in pts]
+    again = fit(x, y, calibration.settings, calibration.confidence)
+    if not (again.n == calibration.n and math.isclose(again.slope, calibration.slope, abs_tol=1e-9)
+            and math.isclose(again.intercept, calibration.intercept, abs_tol=1e-9)):
+        raise ChairqmError("the calibration's stored points do not give its stored line: refit it instead")
+    calibration.loo_scale_kcal = again.loo_scale_kcal
+    calibration.interval_scale_kcal = again.interval_scale_kcal
+    if calibration.outside_domain:
+        calibration.outside_domain["formula"] = OUTSIDE_FORMULA
+    return calibration
 
 
 def interval_half_width(calibration: Calibration, value_kcal: float) -> float:
-    """t_{(1+c)/2, n−2} · s · sqrt(1 + 1/n + (x0 − x̄)²/Sxx): half-width of the prediction interval at x0.
+    """max(t_{(1+c)/2, n−2} · s, q) · sqrt(1 + 1/n + (x0 − x̄)²/Sxx): half-width of the prediction interval at x0.
 
-    Ordinary-least-squares prediction interval for one new observation (Draper and Smith 1998, §3.1;
-    Montgomery, Peck and Vining 2012, eq. 2.45).
+    The ordinary-least-squares prediction interval for one new observation (Draper and Smith 1998, §3.1;
+    Montgomery, Peck and Vining 2012, eq. 2.45), never narrower than the distribution-free one of
+    :func:`loo_scale` (q); a calibration without q (too few points, or an old file) uses t·s alone.
     """
     c = calibration
     x0 = float(value_kcal)
-    return c.t_quantile * c.residual_sd_kcal * math.sqrt(1.0 + 1.0 / c.n + (x0 - c.x_mean_kcal) ** 2 / c.sxx_kcal2)
+    return c.scale() * math.sqrt(1.0 + 1.0 / c.n + (x0 - c.x_mean_kcal) ** 2 / c.sxx_kcal2)
 
 
 def outside_spread(residuals_kcal, in_domain_sd_kcal: float, confidence: float = CONFIDENCE) -> dict:
@@ -191,11 +252,11 @@ def has_outside_spread(calibration: Calibration) -> bool:
 def interval_half_width_outside(calibration: Calibration, value_kcal: float) -> float:
     """Half-width of the 95 % interval outside the calibration's domain:
 
-        t_{(1+c)/2, m−1} · sqrt(s² · (1 + 1/n + (x0 − x̄)²/Sxx) + τ²),
+        sqrt(h_in(x0)² + (t_{(1+c)/2, m−1} · τ)²),
 
-    the in-domain prediction variance (:func:`interval_half_width`) and the out-of-domain excess spread τ
-    (:func:`outside_spread`, measured on m cases) added in quadrature.  Raises ChairqmError when the
-    calibration has no measured out-of-domain spread.
+    the in-domain half-width h_in (:func:`interval_half_width`) and the out-of-domain excess spread τ
+    (:func:`outside_spread`, measured on m cases, with the t quantile of that smaller sample) added in
+    quadrature.  Raises ChairqmError when the calibration has no measured out-of-domain spread.
     """
     if not has_outside_spread(calibration):
         raise ChairqmError("this calibration has no measured out-of-domain spread: outside its domain the "
@@ -203,8 +264,8 @@ def interval_half_width_outside(calibration: Calibration, value_kcal: float) -> 
     c = calibration
     o = c.outside_domain
     x0 = float(value_kcal)
-    var_in = c.residual_sd_kcal ** 2 * (1.0 + 1.0 / c.n + (x0 - c.x_mean_kcal) ** 2 / c.sxx_kcal2)
-    return float(o["t_quantile"]) * math.sqrt(var_in + float(o["excess_sd_kcal"]) ** 2)
+    h_in = interval_half_width(c, x0)
+    return math.sqrt(h_in ** 2 + (float(o["t_quantile"]) * float(o["excess_sd_kcal"])) ** 2)
 
 
 def apply(calibration: Calibration, value_kcal, outside: bool = False) -> tuple[float, float, float]:

@@ -79,10 +79,12 @@ def test_a_chloroform_run_finds_its_calibration_and_gets_its_interval():
     note = calibrate_rows(rows, settings)
     r = rows[0]
     assert r["calibration_domain"] == "inside"
-    # prediction interval written out here (Draper and Smith 1998, section 3.1) from the stored fit
+    # prediction interval written out here (Draper and Smith 1998, section 3.1) from the stored fit, its
+    # factor t*s never below the stored distribution-free scale q (tests/test_calibration.py checks q)
     x0 = 1.5
     yhat = c.intercept + c.slope * x0
-    h = c.t_quantile * c.residual_sd_kcal * math.sqrt(1 + 1 / c.n + (x0 - c.x_mean_kcal) ** 2 / c.sxx_kcal2)
+    h = max(c.t_quantile * c.residual_sd_kcal, c.loo_scale_kcal) * math.sqrt(
+        1 + 1 / c.n + (x0 - c.x_mean_kcal) ** 2 / c.sxx_kcal2)
     assert r["calibrated_kcal"] == pytest.approx(yhat)
     assert (r["interval_low_kcal"], r["interval_high_kcal"]) == (pytest.approx(yhat - h), pytest.approx(yhat + h))
     assert f"calibrated against {c.n} experimental A-values" in note

@@ -84,8 +84,10 @@ def test_widened_interval_formula_and_it_is_wider_than_inside():
     x0 = 1.7
     c.outside_domain = cq_cal.outside_spread([1.0, -1.0, 2.0, -2.0], c.residual_sd_kcal)
     tau = c.outside_domain["excess_sd_kcal"]
-    by_hand = c.outside_domain["t_quantile"] * math.sqrt(
-        c.residual_sd_kcal ** 2 * (1 + 1 / c.n + (x0 - c.x_mean_kcal) ** 2 / c.sxx_kcal2) + tau ** 2)
+    # four points: too few for the distribution-free scale, so the in-domain part is t*s (Draper and Smith)
+    assert c.loo_scale_kcal is None
+    h_in = c.t_quantile * c.residual_sd_kcal * math.sqrt(1 + 1 / c.n + (x0 - c.x_mean_kcal) ** 2 / c.sxx_kcal2)
+    by_hand = math.sqrt(h_in ** 2 + (c.outside_domain["t_quantile"] * tau) ** 2)
     assert cq_cal.interval_half_width_outside(c, x0) == pytest.approx(by_hand)
     v_in, lo_in, hi_in = cq_cal.apply(c, x0)
     v_out, lo_out, hi_out = cq_cal.apply(c, x0, outside=True)
