@@ -61,3 +61,24 @@ def restraint_sets(mol, others, chairs, max_sets: int) -> list:
     if not per_ring:
         return [[]]
     return [[x for part in c for x in part] for c in itertools.product(*per_ring)][:max_sets]
+
+
+def n_state_sets(others) -> int:
+    """How many combinations of the other rings' seeded states exist (before :func:`restraint_sets` keeps
+    the first `max_sets`): two per four-membered ring, four per unfused six-membered ring (two chairs,
+    link equatorial or axial), fused rings not counted."""
+    n = 1
+    for o in others:
+        if len(o["atoms"]) == 4:
+            n *= 2
+        elif not o.get("fused") and len(o["atoms"]) == 6:
+            n *= 4
+    return n
+
+
+def truncation_note(kept: int, total: int) -> str:
+    """'' when every combination was seeded, else the words that say how many were (seeds.csv reasons)."""
+    if total <= kept:
+        return ""
+    return (f"other rings: {kept} of {total} combinations of their states seeded "
+            f"(seeds.MAX_OTHER_RING_SETS); the others were not tried")

@@ -11,7 +11,9 @@ cache off (every run computes its own reference rings).
 
 Key: the group's canonical fragment and every setting that changes a computed free energy (the job
 settings of the seeds, minima, thermo and refine stages, chairqm.provenance.RESULT_SETTINGS, without the
-temperatures) and the chairqm version. One JSON file per key holds {temperature: A-value}; a write merges
+temperatures), the chairqm version and a digest of the package's own source code (every Python file
+except the report's: a changed seeding, merging or thermochemistry rule changes computed A-values while
+the version number may stay the same, so a value computed by other code is never reused). One JSON file per key holds {temperature: A-value}; a write merges
 with what is there and replaces the file atomically, so two runs sharing the cache never leave half a
 file, and the worst a race can do is drop one of two temperatures written at the same moment (it is
 computed again next time).
@@ -19,6 +21,7 @@ computed again next time).
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import os
@@ -46,6 +49,19 @@ def folder(settings: dict | None = None) -> Path | None:
     return Path(text).expanduser()
 
 
+@functools.lru_cache(maxsize=1)
+def code_digest() -> str:
+    """SHA-256 (first 16 hex digits) over the package's Python sources, report/ excepted, in path order."""
+    root = Path(__file__).resolve().parent
+    h = hashlib.sha256()
+    for f in sorted(root.rglob("*.py")):
+        rel = f.relative_to(root).as_posix()
+        if rel.startswith("report/"):
+            continue
+        h.update(rel.encode() + b"\0" + f.read_bytes() + b"\0")
+    return h.hexdigest()[:16]
+
+
 def key(fragment: str, settings: dict) -> dict:
     """Everything a group's same-method A-value depends on (besides the temperature)."""
     from .provenance import job_settings
@@ -54,7 +70,7 @@ def key(fragment: str, settings: dict) -> dict:
         block = job_settings(stage, settings)
         block.pop("temperatures_k", None)
         parts[stage] = block
-    return {"fragment": fragment, "settings": parts, "chairqm_version": __version__}
+    return {"fragment": fragment, "settings": parts, "chairqm_version": __version__, "code": code_digest()}
 
 
 def _path(fragment: str, settings: dict) -> Path | None:

@@ -483,6 +483,11 @@ def _other_ring_chairs(ctx) -> list:
     return other_rings.restraint_sets(ctx.mol, ctx.others, chairs, MAX_OTHER_RING_SETS)
 
 
+def _other_ring_cut(ctx, sets) -> str:
+    """The words for seeds.csv when MAX_OTHER_RING_SETS left combinations of the other rings' states out."""
+    return other_rings.truncation_note(len(sets), other_rings.n_state_sets(ctx.others))
+
+
 # ---- the public entry points ------------------------------------------------------------------------
 def build_seeds(mol, ring, substituents, settings=None, other_rings=()) -> list[Seed]:
     """Every seed of one molecule — kept, merged, screened and failed — in a fixed order.
@@ -614,4 +619,9 @@ def build_seeds(mol, ring, substituents, settings=None, other_rings=()) -> list[
     for tpl in skipped:
         out.append(Seed(name=tpl.name, template=tpl.name, status="screened",
                         reason="twist-boats switched off (seeds.twist_boats = false)"))
+    cut = _other_ring_cut(ctx, other_sets)
+    if cut:                                 # never silent: every seed that was built says so
+        for s in out:
+            if s.status == "ok":
+                s.reason = "; ".join(x for x in (s.reason, cut) if x)
     return out

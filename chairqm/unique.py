@@ -23,6 +23,15 @@ Degeneracy rule (what the thermochemistry multiplies each unique minimum's Boltz
     degeneracy 2 and ``mirror_of`` None.  Either way the pair is counted exactly twice, never four times.
 Duplicates are never counted: a duplicate only adds its name to ``duplicates``.  Pass only conformers
 that optimised successfully (status ok).
+
+Which member represents a group: the lowest-energy one, unless `prefer` ranks the members first.  When
+the molecule's symmetry swaps the analysed ring with another ring (bicyclohexyl, the cyclohexyl group's
+own reference ring), one minimum can be labelled two ways: "analysed ring with its link axial, the other
+ring's equatorial" and "analysed ring equatorial, the other ring's link axial".  Their energies differ
+only by numerical noise, so energy alone would put the minimum into the analysed ring's axial family or
+its equatorial family at random, and the A-value with it.  The stages pass
+:func:`other_ring_rank` as `prefer`, which keeps the labelling whose other rings are in their lowest
+state (chair, link equatorial): the analysed ring carries the difference.
 """
 
 from __future__ import annotations
@@ -138,13 +147,30 @@ def best_rmsd(mol, pos_a, pos_b, reflect_b: bool = False, all_atoms: bool = Fals
     return _Comparer(mol, all_atoms).rmsd(pos_a, pos_b, reflect_b)
 
 
+def other_ring_rank(text) -> int:
+    """How far the other rings of a conformer are from their lowest state, from its `other_rings` text
+    ('r2=chair:equatorial;r3=twist-boat:pseudo-axial', chairqm.ring.other_ring_states): per six-membered
+    ring 0 for a chair, 2 for a twist-boat, 3 for anything else, plus 1 when its link is axial or
+    pseudo-axial; four- and five-membered rings' puckers count 0.  Used as `prefer` of :func:`unique_minima`."""
+    rank = 0
+    for part in str(text or "").split(";"):
+        state = part.partition("=")[2]
+        if ":" not in state:
+            continue
+        form, _, link = state.partition(":")
+        rank += {"chair": 0, "twist-boat": 2}.get(form, 3) + (1 if "axial" in link else 0)
+    return rank
+
+
 def unique_minima(mol, records, rmsd_tol: float = 0.125, energy_tol_kcal: float = 0.1,
-                  all_atoms: bool = False) -> list[UniqueMinimum]:
+                  all_atoms: bool = False, prefer=None) -> list[UniqueMinimum]:
     """Group optimised conformers into unique minima (see the module docstring for the rules).
 
     mol: RDKit Mol with Hs and the input's stereo, atom order as in the records.  records: items (objects
     or dicts) with `name`, `positions` (N, 3) Å and `energy_hartree`.  Returns the unique minima sorted
     by energy.  all_atoms=True compares over every atom instead of heavy atoms + heteroatom H.
+    prefer: optional function of a record's name returning a sortable rank; among the members of a group
+    the lowest (rank, energy) represents it (default: the lowest energy).
     """
     recs = sorted(records, key=lambda r: float(_get(r, "energy_hartree")))
     if not recs:
@@ -163,9 +189,15 @@ def unique_minima(mol, records, rmsd_tol: float = 0.125, energy_tol_kcal: float 
         for g in groups:
             if abs(e - g["e"]) <= e_tol and cmp.rmsd(g["pos"], pos) <= rmsd_tol:
                 g["dups"].append(_get(r, "name"))
+                g["all"].append((_get(r, "name"), e, pos))
                 break
         else:
-            groups.append({"name": _get(r, "name"), "e": e, "pos": pos, "dups": []})
+            groups.append({"name": _get(r, "name"), "e": e, "pos": pos, "dups": [],
+                           "all": [(_get(r, "name"), e, pos)]})
+    if prefer is not None:
+        for g in groups:
+            name, e, pos = min(g["all"], key=lambda m: (prefer(m[0]), m[1]))
+            g.update(name=name, e=e, pos=pos, dups=[m[0] for m in g["all"] if m[0] != name])
 
     chiral_mol = is_chiral_molecule(mol)
     out: list[UniqueMinimum] = []

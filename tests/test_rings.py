@@ -69,7 +69,9 @@ def test_phenylsilacyclohexane_equatorial_as_in_the_gas_phase_experiment(run):
     groups (dispersion-bound)."""
     _, s = run
     expected = R_KCAL * T * math.log(62 / 38)
-    assert abs(_a(s, "ph-silacyclohexane") - expected) <= 1.0
+    a = _a(s, "ph-silacyclohexane")
+    assert abs(a - expected) <= 1.0
+    assert a > 0            # the preferred chair itself: both experiments put the phenyl equatorial
 
 
 @pytest.mark.slow

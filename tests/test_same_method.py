@@ -75,6 +75,17 @@ def test_cache_round_trip_is_keyed_by_settings_and_temperature(cache):
     assert not list(cache.glob("*.tmp*")) and len(list(cache.glob("*.json"))) == 1
 
 
+def test_a_value_computed_by_other_code_is_not_reused(cache, monkeypatch):
+    # the version number stays 0.1.0 across changes of the seeding and merging rules; the key carries a
+    # digest of the package's sources, so an entry written by other code is a miss, never a stale hit
+    s = _settings()
+    RC.store("[*]C", s, {298.15: 1.73})
+    assert RC.lookup("[*]C", s, [298.15]) == {298.15: 1.73}
+    assert len(RC.code_digest()) == 16 and RC.key("[*]C", s)["code"] == RC.code_digest()
+    monkeypatch.setattr(RC, "code_digest", lambda: "0" * 16)
+    assert RC.lookup("[*]C", s, [298.15]) is None
+
+
 def test_cache_can_be_switched_off(monkeypatch, tmp_path):
     monkeypatch.setenv(RC.ENV, "off")
     assert RC.folder({}) is None

@@ -446,3 +446,18 @@ def test_a_four_membered_ring_in_a_group_is_seeded_in_both_puckers():
     found = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
     assert {s.other_rings for s in found if s.status == "ok"} == {"r2=puckered:pseudo-axial",
                                                                   "r2=puckered:pseudo-equatorial"}
+
+
+def test_a_cut_in_the_other_rings_combinations_is_said_in_every_seed(monkeypatch):
+    """Bicyclohexyl's other ring has four seeded states (two chairs, link equatorial or axial); with room
+    for two, the seeds say that 2 of 4 were tried instead of dropping the rest silently."""
+    from chairqm import other_rings
+    from chairqm.molecule import perceive
+    p = perceive({"name": "b", "smiles": "C1CCC(CC1)C1CCCCC1"})[0]
+    assert other_rings.n_state_sets(p.other_rings) == 4
+    full = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
+    assert not any("combinations of their states" in s.reason for s in full)
+    monkeypatch.setattr(S, "MAX_OTHER_RING_SETS", 2)
+    cut = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
+    kept = [s for s in cut if s.status == "ok"]
+    assert kept and all("other rings: 2 of 4 combinations of their states seeded" in s.reason for s in kept)

@@ -226,3 +226,37 @@ def test_record_objects_are_accepted():
     pos = mol.GetConformer().GetPositions()
     groups = unique_minima(mol, [Record("a", pos, -1.0), Record("b", pos + 1.0, -1.0)])   # translated copy
     assert len(groups) == 1 and groups[0].duplicates == ["b"]
+
+
+def test_ring_swapped_twin_of_bicyclohexyl_is_represented_by_the_preferred_labelling():
+    # bicyclohexyl: the graph automorphism that swaps the two rings makes "ring A's link axial, ring B's
+    # equatorial" and "A equatorial, B axial" one minimum; which labelling represents it must not be left
+    # to numerical noise in the energy (it decides the analysed ring's family, and the cyclohexyl A-value)
+    from chairqm.unique import other_ring_rank
+    mol = Chem.AddHs(Chem.MolFromSmiles("C1CCC(CC1)C1CCCCC1"))
+    AllChem.EmbedMolecule(mol, randomSeed=7)
+    AllChem.MMFFOptimizeMolecule(mol)
+    pos = mol.GetConformer().GetPositions()
+    ring_a = set(mol.GetRingInfo().AtomRings()[0])
+    swap = next(m for m in mol.GetSubstructMatches(mol, uniquify=False, maxMatches=5000)
+                if not ring_a & {m[i] for i in ring_a})
+    twin = pos[list(swap)]                      # the same geometry with the rings' labels exchanged
+    e = -40.0
+    recs = [{"name": "labelled-a", "positions": pos, "energy_hartree": e},
+            {"name": "labelled-b", "positions": twin, "energy_hartree": e - 1e-8}]
+    plain = unique_minima(mol, recs)
+    assert len(plain) == 1 and plain[0].name == "labelled-b"          # lowest energy wins by default
+    ranks = {"labelled-a": other_ring_rank("r2=chair:equatorial"), "labelled-b": other_ring_rank("r2=chair:axial")}
+    chosen = unique_minima(mol, recs, prefer=ranks.get)
+    assert len(chosen) == 1 and chosen[0].name == "labelled-a" and chosen[0].duplicates == ["labelled-b"]
+    assert chosen[0].energy_hartree == e
+
+
+def test_other_ring_rank_orders_the_other_rings_states():
+    from chairqm.unique import other_ring_rank
+    assert other_ring_rank("") == 0 and other_ring_rank(None) == 0
+    assert other_ring_rank("r2=chair:equatorial") == 0
+    assert other_ring_rank("r2=chair:axial") == 1
+    assert other_ring_rank("r2=twist-boat:pseudo-equatorial") == 2
+    assert other_ring_rank("r2=twist-boat:pseudo-axial") == 3
+    assert other_ring_rank("r2=chair:equatorial;r3=chair:axial;r4=envelope") == 1

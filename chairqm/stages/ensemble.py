@@ -9,6 +9,7 @@ Then populations, families, the chair gap and A-value, the additive estimate and
 from __future__ import annotations
 
 import math
+import re
 from pathlib import Path
 
 from .. import fileio
@@ -359,7 +360,14 @@ def _medium_and_coverage(p, settings, folder, usable, out):
     seeds_csv = folder / "seeds.csv"
     cov = None
     if seeds_csv.is_file():
-        cov = cq_rot.coverage(pd.read_csv(seeds_csv, keep_default_na=False)["reason"].tolist())
+        reasons = pd.read_csv(seeds_csv, keep_default_na=False)["reason"].tolist()
+        cov = cq_rot.coverage(reasons)
+        cut = next((m.group(0) for r in reasons for m in [re.search(r"other rings: \d+ of \d+ combinations[^;]*", str(r))]
+                    if m), "")
+        if cut:
+            out["other_ring_sets_cut"] = cut
+            for row in out["temperatures"]:
+                row["note"] = "; ".join(x for x in (row.get("note", ""), cut) if x)
     if cov is not None:
         out["rotor_coverage"] = cov
         text = (f"rotor space: {cov['starts']} of {cov['grid']} torsion-grid starts per ring form "

@@ -90,7 +90,8 @@ def run(cfg, plan, name, threads=1):
     groups = cq_unique.unique_minima(
         p.mol, [cq_unique.Record(name=s, positions=geoms[s].positions, energy_hartree=recs[s]["energy_hartree"])
                 for s in good],
-        rmsd_tol=settings["unique"]["rmsd_a"], energy_tol_kcal=settings["unique"]["energy_kcal"])
+        rmsd_tol=settings["unique"]["rmsd_a"], energy_tol_kcal=settings["unique"]["energy_kcal"],
+        prefer=lambda s: cq_unique.other_ring_rank((recs[s]["measured"] or {}).get("other_rings")))
     groups = sorted(groups, key=lambda g: (recs[g.name]["energy_hartree"], g.name))
     conf_of, dup_of, conformers = {}, {}, []
     for k, g in enumerate(groups, 1):

@@ -149,10 +149,11 @@ def _final_list(p, minima, recs, work, settings):
                       "thermal_correction_from": cid if rec.get("vibrations") else None})
     good = [c for c in confs if c["usable"]]
     geoms = {c["conformer"]: read_xyz(work / f"{c['conformer']}.xyz") for c in good}
+    by_id = {c["conformer"]: c for c in confs}
     groups = cq_unique.unique_minima(
         p.mol, [cq_unique.Record(c["conformer"], geoms[c["conformer"]].positions, c["energy_hartree"]) for c in good],
-        rmsd_tol=settings["unique"]["rmsd_a"], energy_tol_kcal=settings["unique"]["energy_kcal"])
-    by_id = {c["conformer"]: c for c in confs}
+        rmsd_tol=settings["unique"]["rmsd_a"], energy_tol_kcal=settings["unique"]["energy_kcal"],
+        prefer=lambda cid: cq_unique.other_ring_rank(by_id[cid].get("other_rings")))
     for g in groups:
         by_id[g.name]["degeneracy"] = int(g.degeneracy)
         for m in list(g.duplicates) + list(g.mirror_members):
