@@ -31,6 +31,7 @@ def _seeds(smiles):
     "CNC(=O)N1CCCCC1",                # a urea on the ring N
     "O=NN1CCCCC1",                    # N-nitrosopiperidine
     "O=C1CCCCN1",                     # 2-piperidinone (lactam N-H)
+    "CS(=O)(=O)N1CCCCC1",             # N-mesylpiperidine (a sulfonamide N: seeded as it embeds, both inversions)
 ])
 def test_planar_ring_nitrogen_is_seeded_in_both_chairs_without_failures(smiles):
     p, seeds = _seeds(smiles)
@@ -89,6 +90,7 @@ MOLECULES = [
     {"name": "boc-pip", "smiles": "CC(C)(C)OC(=O)N1CCCCC1"},
     {"name": "ac-2me-pip", "smiles": "C[C@@H]1CCCCN1C(C)=O"},
     {"name": "boc-2me-pip", "smiles": "C[C@@H]1CCCCN1C(=O)OC(C)(C)C"},
+    {"name": "formyl-2me-pip", "smiles": "C[C@@H]1CCCCN1C=O"},
 ]
 
 
@@ -111,7 +113,7 @@ def test_n_boc_piperidine_runs_and_its_chairs_are_one_by_symmetry(run):
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("name", ["ac-2me-pip", "boc-2me-pip"])
+@pytest.mark.parametrize("name", ["ac-2me-pip", "boc-2me-pip", "formyl-2me-pip"])
 def test_2_methyl_goes_axial_next_to_an_acylated_ring_nitrogen(run, name):
     # 2-methyl axial in N-acyl-2-methylpiperidines (pseudo-allylic strain; common practice)
     _, summary = run
