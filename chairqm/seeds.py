@@ -28,6 +28,10 @@ How a seed is made
 6. Every seed is re-measured (ring form, Q, theta, phi, orientations) and its stereo is checked against
    the input from its 3D structure (RDKit AssignStereochemistryFrom3D); a mismatch marks it failed.
 
+Steps 1 and 2, and the fused-ring checks of 4 (a trans fusion that cannot be spanned is screened as
+locked; a fused six-membered ring is restrained to the chair the fusion allows), live in chairqm.skeletons;
+their names stay importable from here.
+
 The result is deterministic: fixed random seeds, fixed enumeration order, no threads, and coordinates
 rounded where they pass from numpy to RDKit and back (DECIMALS_*), because numpy's last bits may differ
 between processes.
@@ -48,7 +52,10 @@ from . import chem, coordination, other_rings, rotamers, symmetry
 from . import ring as ringgeo
 from .errors import ChairqmError
 from .cages import cage_fixed_centres
-from .molecule import is_trigonal_exocyclic
+# steps 1 and 2 (templates, skeletons, stereo choices) and the fused-ring checks, importable from here as before
+from .skeletons import (CHAIR_Q, DECIMALS_TEMPLATE, FUSION_MAX_TORSION, N_ARYL_TILT, TEMPLATES,  # noqa: F401
+                        TWIST_Q, Template, _bond_length, _choices, _fix_stereo, _fused_chairs, _fusion_pairs,
+                        _ring_tags, _skeleton, _template_ring, _unspannable_fusion)
 
 RDLogger.DisableLog("rdApp.*")
 
@@ -72,41 +79,16 @@ SETTINGS_HELP = {
 }
 
 # ---- construction constants -------------------------------------------------------------------------
-CHAIR_Q = 0.55          # Å, template amplitude of the chairs (MMFF94 cyclohexane chair: 0.553 Å, measured)
-TWIST_Q = 0.72          # Å, template amplitude of the twist-boats (MMFF94 cyclohexane twist-boat: 0.717 Å)
 RING_TORSION_TOL = 10.0     # deg, flat-bottom half-width of the ring-torsion restraints
 RING_TORSION_K = 1.0e3      # force constant of those restraints (RDKit units, kcal/mol per rad^2)
 MAX_OTHER_RING_SETS = 16    # combinations of the other rings' states seeded per ring form (4^2: two rings)
-# An N-aryl ring N is a shallow pyramid (about 20 deg from planar, common practice): its exocyclic bond is
-# seeded tilted this fraction of the way from the in-plane bisector towards each tetrahedral slot (0.35:
-# about 18 deg, the largest tilt RDKit's embedding accepts for an sp2 N, tried here on N-phenylpiperidine).
-N_ARYL_TILT = 0.35
-# deg: two bonds into a fused five- or six-membered ring on adjacent ring atoms can be gauche (cis- or
-# trans-diequatorial fusion, |torsion| near 60) but not anti (trans-diaxial, near 180); beyond this the
-# template is screened as locked (the ring's own torsion inside the fused ring could not be closed)
-FUSION_MAX_TORSION = 150.0
 SKELETON_TOL = 0.02         # Å, max deviation for two skeletons to be symmetry-equivalent
 # numpy's results can differ in the last bits between processes (memory alignment picks different SIMD
 # paths); coordinates are rounded at each hand-over so that the same input gives the same bytes.
-DECIMALS_TEMPLATE = 6       # Å, templates and skeletons
 DECIMALS_START = 5          # Å, embedded structures and rotamer starts handed to the force field
 DECIMALS_OUT = 6            # Å, final seed positions
 
 STATUSES = ("ok", "merged", "screened", "failed")
-@dataclass(frozen=True)
-class Template:
-    """A ring template: name, intended form and Cremer–Pople (q [Å], theta, phi [deg])."""
-    name: str
-    form: str
-    q: float
-    theta: float
-    phi: float
-
-
-TEMPLATES = (
-    [Template("chair-1", "chair", CHAIR_Q, 0.0, 0.0), Template("chair-2", "chair", CHAIR_Q, 180.0, 0.0)]
-    + [Template(f"tb-{k + 1}", "twist-boat", TWIST_Q, 90.0, 30.0 + 60.0 * k) for k in range(6)]
-)
 
 
 @dataclass
@@ -151,11 +133,6 @@ def check_settings(settings: dict | None) -> dict:
         raise ChairqmError(f"seeds.ff_window_kcal must be a positive number, got {w!r}")
     out["ff_window_kcal"] = float(w)
     return out
-
-
-# ---- small geometry helpers -------------------------------------------------------------------------
-def _bond_length(mol, i, j) -> float:
-    return chem.covalent_bond_length(mol, i, j)
 
 
 # ---- the molecule-level context --------------------------------------------------------------------
@@ -238,81 +215,6 @@ def _prepare(mol, ring, substituents, settings, other_rings=()) -> _Context:
     elif AllChem.UFFHasAllMoleculeParams(work):
         ctx.forcefield = "UFF"
     return ctx
-
-
-# ---- skeletons --------------------------------------------------------------------------------------
-def _template_ring(ctx, tpl: Template) -> np.ndarray:
-    lengths = [_bond_length(ctx.mol, ctx.ring[k], ctx.ring[(k + 1) % 6]) for k in range(6)]
-    return np.round(ringgeo.ring_from_pucker(tpl.q, tpl.theta, tpl.phi, lengths), DECIMALS_TEMPLATE) + 0.0
-
-
-def _skeleton(ctx, X, choice) -> dict:
-    """Positions of ring atoms and their exocyclic neighbours; choice[k] = 1 swaps up/down at position k."""
-    pos = {}
-    for k, a in enumerate(ctx.ring):
-        pos[a] = X[k]
-        if len(ctx.exo[k]) == 1 and (is_trigonal_exocyclic(ctx.mol, a, ctx.exo[k][0])
-                                     or (k in ctx.planar and k not in ctx.tilted)):
-            # C=O, C=CH2, and the one exocyclic bond of a planar ring N (amide, carbamate, urea): in the
-            # plane of the ring atom and its two ring neighbours, on their bisector
-            d = (X[k] - X[k - 1]) + (X[k] - X[(k + 1) % 6])
-            e = ctx.exo[k][0]
-            pos[e] = np.round(X[k] + _bond_length(ctx.mol, a, e) * d / np.linalg.norm(d), DECIMALS_TEMPLATE)
-            continue
-        d1, d2 = ringgeo.exocyclic_slots(X, list(range(6)), k)
-        up, down = (d1, d2) if d1[2] >= d2[2] else (d2, d1)
-        slots = (down, up) if choice[k] else (up, down)
-        if k in ctx.tilted:
-            # N-aryl: a shallow pyramid, tilted from the bisector towards the chosen slot (both are seeded)
-            b = (X[k] - X[k - 1]) + (X[k] - X[(k + 1) % 6])
-            b = b / np.linalg.norm(b)
-            d = b + N_ARYL_TILT * (slots[0] - b)
-            slots = (d / np.linalg.norm(d),)
-        for e, d in zip(ctx.exo[k], slots):
-            pos[e] = np.round(X[k] + _bond_length(ctx.mol, a, e) * d, DECIMALS_TEMPLATE)
-    return pos
-
-
-def _ring_tags(ctx, pos) -> dict:
-    """Chiral tags RDKit perceives at the ring atoms from skeleton positions."""
-    X = np.zeros((ctx.mol.GetNumAtoms(), 3))       # atoms off the skeleton stay at the origin
-    for i, p in pos.items():
-        X[int(i)] = p
-    tmp = chem.with_positions(ctx.mol, X)
-    cid = tmp.GetConformer().GetId()
-    Chem.AssignAtomChiralTagsFromStructure(tmp, confId=cid, replaceExistingTags=True)
-    return {a: tmp.GetAtomWithIdx(a).GetChiralTag() for a in ctx.ring}
-
-
-def _choices(ctx):
-    """(free positions, stereo-fixed positions) of the ring: where up/down of the exocyclic atoms is a
-    conformational choice, and where the input's chirality decides it."""
-    free, fixed = [], []
-    for k, a in enumerate(ctx.ring):
-        e = ctx.exo[k]
-        if not e:
-            continue
-        if a in ctx.ref_tags:
-            fixed.append(k)
-        elif len(e) == 2 and ctx.ranks[e[0]] == ctx.ranks[e[1]]:
-            continue
-        elif len(e) == 1 and (is_trigonal_exocyclic(ctx.mol, a, e[0]) or (k in ctx.planar and k not in ctx.tilted)):
-            continue                    # C=O, C=CH2, planar N: the optimisation decides its pyramidality
-        else:
-            free.append(k)
-    return free, fixed
-
-
-def _fix_stereo(ctx, X, choice, fixed):
-    """Flip the choice at stereo-fixed positions until the skeleton has the input's tags there."""
-    choice = list(choice)
-    tags = _ring_tags(ctx, _skeleton(ctx, X, choice))
-    for k in fixed:
-        if tags[ctx.ring[k]] != ctx.ref_tags[ctx.ring[k]]:
-            choice[k] = 1
-    tags = _ring_tags(ctx, _skeleton(ctx, X, choice))
-    bad = [ctx.ring[k] for k in fixed if tags[ctx.ring[k]] != ctx.ref_tags[ctx.ring[k]]]
-    return choice, bad
 
 
 # ---- building ---------------------------------------------------------------------------------------
@@ -421,60 +323,6 @@ def _frame(ctx, X, ring_xyz):
     """Put a structure into the template frame: ring atoms superposed on the template ring (proper fit)."""
     T = chem.fit(ring_xyz, X[ctx.ring])
     return np.round(T(X), DECIMALS_OUT) + 0.0
-
-
-def _fusion_pairs(ctx) -> list:
-    """(label, ring atom a, its fused-ring neighbour, ring atom b, its fused-ring neighbour) per fused ring."""
-    by_label = {}
-    for sub in ctx.subs:
-        label = sub.get("fused", "") if isinstance(sub, dict) else getattr(sub, "fused", "")
-        if label:
-            ra = int(sub["ring_atom"] if isinstance(sub, dict) else sub.ring_atom)
-            fa = int(sub["first_atom"] if isinstance(sub, dict) else sub.first_atom)
-            by_label.setdefault(label, []).append((ra, fa))
-    return [(label, *pairs[0], *pairs[1]) for label, pairs in by_label.items() if len(pairs) == 2]
-
-
-def _unspannable_fusion(ctx, pos) -> str:
-    """Why a skeleton cannot be built ('' if it can): the two bonds into a fused ring are anti-periplanar
-    (|torsion| above FUSION_MAX_TORSION), as both fusion bonds of a trans-fused ring are in the other
-    chair, and a five- or six-membered ring cannot span them. This is the ring-flip lock of the
-    trans-decalins and trans-hydrindanes."""
-    for label, a, fa, b, fb in _fusion_pairs(ctx):
-        if not all(i in pos for i in (a, fa, b, fb)):
-            continue
-        tau = chem.dihedral(pos[fa], pos[a], pos[b], pos[fb])
-        if abs(tau) > FUSION_MAX_TORSION:
-            size = len(next((o["atoms"] for o in ctx.others if o["label"] == label), ()))
-            return (f"locked: the bonds into the fused ring {label} would be anti-periplanar here (torsion "
-                    f"{tau:.0f} deg), which a {size}-membered ring cannot span (trans ring fusion: this ring "
-                    "form cannot be reached)")
-    return ""
-
-
-def _fused_chairs(ctx, pos) -> list:
-    """Restraints for each fused six-membered ring: the chair whose torsion about the shared bond has the
-    sign the analysed ring's template gives it (fa–a–b–fb on the skeleton), i.e. the one chair the
-    fusion allows in this form; left unrestrained, the embedding often leaves it a twist-boat."""
-    out = []
-    chairs = [(t.q, t.theta, t.phi) for t in TEMPLATES if t.form == "chair"]
-    for label, a, fa, b, fb in _fusion_pairs(ctx):
-        o = next((o for o in ctx.others if o["label"] == label), None)
-        if o is None or len(o["atoms"]) != 6 or not all(i in pos for i in (a, fa, b, fb)):
-            continue
-        tau = chem.dihedral(pos[fa], pos[a], pos[b], pos[fb])
-        r0 = [int(i) for i in o["atoms"]]
-        k = r0.index(fa)
-        r = r0[k:] + r0[:k]                       # fa first: torsion 0 is fa-a-b-fb when a follows fa
-        if r[1] != a:
-            r = [r[0]] + r[1:][::-1]
-        lengths = [_bond_length(ctx.mol, r[i], r[(i + 1) % 6]) for i in range(6)]
-        for q, theta, phi in chairs:
-            tors = np.round(ringgeo.ring_torsions(ringgeo.ring_from_pucker(q, theta, phi, lengths)), 4)
-            if tors[0] * tau > 0:
-                out.append((r, tors))
-                break
-    return out
 
 
 def _other_ring_chairs(ctx) -> list:
