@@ -538,8 +538,13 @@ def _other_rings(mol, ring, rings, fused=()) -> list[dict]:
                 path = Chem.GetShortestPath(mol, a, b)
                 if path and (best is None or len(path) < len(best)):
                     best = path
-        out.append({"label": f"r{len(out) + 2}", "atoms": list(r), "link_atom": int(best[0]),
-                    "link_to": int(best[1])})
+        entry = {"label": f"r{len(out) + 2}", "atoms": list(r), "link_atom": int(best[0]), "link_to": int(best[1])}
+        if len(r) == 6:
+            from .other_rings import inverting_nitrogens
+            nitrogens = inverting_nitrogens(mol, r, best[0])
+            if nitrogens:                 # ring N-H / N-R that inverts: its side is part of the ring's state
+                entry["nitrogens"] = [[int(n), int(x), mol.GetAtomWithIdx(int(x)).GetSymbol()] for n, x in nitrogens]
+        out.append(entry)
     return out
 
 

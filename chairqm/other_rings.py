@@ -2,7 +2,10 @@
 
 A six-membered ring inside a substituent (morpholino, piperidino, cyclohexyl) is seeded in both chairs
 and, in each, with its link to the analysed ring equatorial and axial (a ring N inverts, so the chair
-alone does not decide where the link sits); a four-membered one (cyclobutyl, oxetanyl, azetidinyl) in
+alone does not decide where the link sits); a pyramidal ring N of that ring other than the link atom
+(the N–H of piperidin-4-yl, the N-methyl of 1-methylpiperidin-4-yl) is inverted in a copy of each seed
+(:func:`invert_nitrogen`, used by chairqm.seeds), since N inversion is part of the conformer and the
+force field keeps whichever side the embedding happened to give; a four-membered one (cyclobutyl, oxetanyl, azetidinyl) in
 both puckers. A ring fused to the analysed ring is not restrained: the analysed ring's form decides its
 chair (or envelope), which the embedding and the force field find. chairqm.seeds adds each restraint set
 to the analysed ring's own.
@@ -52,21 +55,80 @@ def restraint_sets(mol, others, chairs, max_sets: int) -> list:
         states = []
         for q, theta, phi in chairs:
             tors = np.round(ringgeo.ring_torsions(ringgeo.ring_from_pucker(q, theta, phi, lengths)), 4)
-            sign = 1.0 if tors[5] > 0 else -1.0
-            link = (int(o["link_to"]), r[0], r[1], r[2])
-            eq = ("torsion", link, *sorted((sign * 160.0, sign * 180.0)))
-            ax = ("torsion", link, -sign * 65.0 - 15.0, -sign * 65.0 + 15.0)
-            states += [[(r, tors), eq], [(r, tors), ax]]
+            for side in _sides(tors, r, 0, int(o["link_to"])):
+                states.append([(r, tors), side])
         per_ring.append(states)
     if not per_ring:
         return [[]]
     return [[x for part in c for x in part] for c in itertools.product(*per_ring)][:max_sets]
 
 
-def n_state_sets(others) -> int:
+def _sides(tors, r, j: int, x: int) -> list:
+    """The equatorial and the axial restraint of the exocyclic bond r[j]–x in a chair with ring torsions
+    `tors` (torsion i runs over r[i], r[i+1], r[i+2], r[i+3]): with A = r[j], B, C the next two ring atoms
+    and τ the ring torsion F–A–B–C, the equatorial bond is anti to C (X–A–B–C ≈ sign(τ)·175°) and the
+    axial one gauche (≈ −sign(τ)·65°), ideal tetrahedral geometry."""
+    sign = 1.0 if tors[(j - 1) % 6] > 0 else -1.0
+    t = (int(x), r[j], r[(j + 1) % 6], r[(j + 2) % 6])
+    return [("torsion", t, *sorted((sign * 160.0, sign * 180.0))),
+            ("torsion", t, -sign * 65.0 - 15.0, -sign * 65.0 + 15.0)]
+
+
+def inverting_nitrogens(mol, ring, link_atom: int) -> list[tuple[int, int]]:
+    """(ring N, its exocyclic neighbour) for every pyramidal ring N of an other ring besides its link atom:
+    three neighbours, one outside the ring (H or a group), no neighbour with a double or aromatic bond
+    (an amide, carbamate or N-aryl N is planar and has no axial or equatorial side)."""
+    ring = [int(a) for a in ring]
+    out = []
+    for a in ring:
+        atom = mol.GetAtomWithIdx(a)
+        if a == int(link_atom) or atom.GetAtomicNum() != 7 or atom.GetDegree() != 3 or atom.GetFormalCharge():
+            continue
+        if atom.GetIsAromatic() or any(n.GetIsAromatic() or any(b.GetBondTypeAsDouble() > 1.0 for b in n.GetBonds())
+                                       for n in atom.GetNeighbors()):
+            continue
+        exo = [n.GetIdx() for n in atom.GetNeighbors() if n.GetIdx() not in ring]
+        if len(exo) == 1:
+            out.append((a, exo[0]))
+    return out
+
+
+def invert_nitrogen(mol, positions, ring, n: int, x: int):
+    """A copy of `positions` with ring atom `n` inverted: its exocyclic neighbour `x` and every atom behind
+    it reflected through the plane of `n` and its two ring neighbours (bond lengths and angles kept; the
+    ring untouched). None when the exocyclic branch holds a stereocentre (its mirror image would be the
+    other configuration) or reaches back into the ring."""
+    ring = [int(a) for a in ring]
+    k = ring.index(int(n))
+    a, b = ring[k - 1], ring[(k + 1) % len(ring)]
+    branch, todo = {int(x)}, [int(x)]
+    while todo:
+        i = todo.pop()
+        for nb in mol.GetAtomWithIdx(i).GetNeighbors():
+            j = nb.GetIdx()
+            if j == int(n) or j in branch:
+                continue
+            if j in ring:
+                return None
+            branch.add(j)
+            todo.append(j)
+    from rdkit import Chem
+    if any(mol.GetAtomWithIdx(i).GetChiralTag() != Chem.ChiralType.CHI_UNSPECIFIED for i in branch):
+        return None
+    X = np.array(positions, dtype=float)
+    p0 = X[int(n)]
+    normal = np.cross(X[a] - p0, X[b] - p0)
+    normal /= np.linalg.norm(normal)
+    idx = sorted(branch)
+    d = (X[idx] - p0) @ normal
+    X[idx] = X[idx] - 2.0 * d[:, None] * normal[None, :]
+    return X
+
+
+def n_state_sets(others, mol=None) -> int:
     """How many combinations of the other rings' seeded states exist (before :func:`restraint_sets` keeps
     the first `max_sets`): two per four-membered ring, four per unfused six-membered ring (two chairs,
-    link equatorial or axial), fused rings not counted."""
+    link equatorial or axial), fused rings not counted (ring N inversion is seeded by copies, not sets)."""
     n = 1
     for o in others:
         if len(o["atoms"]) == 4:

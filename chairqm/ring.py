@@ -347,7 +347,10 @@ def measure(positions, ring, substituents, other_rings=(), trigonal_atoms=()) ->
 
 def other_ring_states(positions, other_rings) -> str:
     """'r2=chair:equatorial;r3=twist-boat:pseudo-axial': per other ring its form (Cremer–Pople, as for the
-    analysed ring) and the orientation on it of its link towards the analysed ring."""
+    analysed ring) and the orientation on it of its link towards the analysed ring; for each inverting
+    ring N of a six-membered one ('nitrogens', chairqm.other_rings.inverting_nitrogens) also the side of
+    its exocyclic bond, as its own part: 'r2.N9-H=axial' (atom index 0-based, then the neighbour's
+    element)."""
     x = np.asarray(positions, dtype=float)
     parts = []
     for o in other_rings:
@@ -359,6 +362,8 @@ def other_ring_states(positions, other_rings) -> str:
             continue
         form = classify(cremer_pople(x[list(o["atoms"])]))
         parts.append(f"{o['label']}={form}:{orientation(x, list(o['atoms']), o['link_atom'], o['link_to'], form)}")
+        for n, nx, el in o.get("nitrogens", ()):
+            parts.append(f"{o['label']}.N{n}-{el}={orientation(x, list(o['atoms']), n, nx, form)}")
     return ";".join(parts)
 
 

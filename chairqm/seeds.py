@@ -331,9 +331,41 @@ def _other_ring_chairs(ctx) -> list:
     return other_rings.restraint_sets(ctx.mol, ctx.others, chairs, MAX_OTHER_RING_SETS)
 
 
+def _nitrogen_inversions(ctx, seeds) -> list:
+    """For every inverting ring N of an other ring (its 'nitrogens'), a copy of each kept seed with that N
+    inverted (chairqm.other_rings.invert_nitrogen), relaxed with the force field with both rings held to
+    their torsions, kept when no kept seed carries its labels at a lower force-field energy (a state the
+    restraint sets did not reach, or reached only through a strained start). Named SEED-n<atom>."""
+    pivots = [(o["atoms"], n, x) for o in ctx.others for n, x, _ in o.get("nitrogens", ())]
+    if not pivots:
+        return []
+    have = {}
+    for s in seeds:
+        if s.status == "ok" and s.ff_energy_kcal is not None:
+            label = (s.ring_form, s.orientation, s.other_rings)
+            have[label] = min(have.get(label, float("inf")), float(s.ff_energy_kcal))
+    out = []
+    for s in [s for s in seeds if s.status == "ok"]:
+        for ring_atoms, n, x in pivots:
+            X = other_rings.invert_nitrogen(ctx.mol, s.positions, ring_atoms, n, x)
+            if X is None:
+                continue
+            twin = Seed(name=f"{s.name}-n{n}", template=s.template, forcefield=ctx.forcefield)
+            hold = [(ctx.ring, np.round(ringgeo.ring_torsions(X[ctx.ring]), 4)),
+                    (list(ring_atoms), np.round(ringgeo.ring_torsions(X[list(ring_atoms)]), 4))]
+            notes, mismatch = _relax_into(ctx, twin, X, hold, X[ctx.ring], s.ring_form)
+            label = (twin.ring_form, twin.orientation, twin.other_rings)
+            if mismatch or twin.ff_energy_kcal is None or twin.ff_energy_kcal >= have.get(label, float("inf")):
+                continue
+            have[label] = float(twin.ff_energy_kcal)
+            twin.reason = "; ".join([f"ring N {n} of {s.name} inverted"] + notes)
+            out.append(twin)
+    return out
+
+
 def _other_ring_cut(ctx, sets) -> str:
     """The words for seeds.csv when MAX_OTHER_RING_SETS left combinations of the other rings' states out."""
-    return other_rings.truncation_note(len(sets), other_rings.n_state_sets(ctx.others))
+    return other_rings.truncation_note(len(sets), other_rings.n_state_sets(ctx.others, ctx.mol))
 
 
 # ---- the public entry points ------------------------------------------------------------------------
@@ -467,6 +499,7 @@ def build_seeds(mol, ring, substituents, settings=None, other_rings=()) -> list[
     for tpl in skipped:
         out.append(Seed(name=tpl.name, template=tpl.name, status="screened",
                         reason="twist-boats switched off (seeds.twist_boats = false)"))
+    out += _nitrogen_inversions(ctx, out)
     cut = _other_ring_cut(ctx, other_sets)
     if cut:                                 # never silent: every seed that was built says so
         for s in out:

@@ -461,3 +461,21 @@ def test_a_cut_in_the_other_rings_combinations_is_said_in_every_seed(monkeypatch
     cut = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
     kept = [s for s in cut if s.status == "ok"]
     assert kept and all("other rings: 2 of 4 combinations of their states seeded" in s.reason for s in kept)
+
+
+def test_an_inverting_ring_nitrogen_in_a_group_is_seeded_on_both_sides():
+    """4-Cyclohexylpiperidine: the piperidine N-H inverts (N inversion is part of the conformer), so each
+    of the 2 x 2 x 2 states (cyclohexane link equatorial/axial, piperidine link equatorial/axial, N-H
+    equatorial/axial) is a conformer and must have a seed that is not strained (force-field energy within
+    15 kcal/mol of the best; a strained start relaxes elsewhere)."""
+    from chairqm.molecule import perceive
+    p = perceive({"name": "cp", "smiles": "C1CCC(CC1)C1CCNCC1"})[0]
+    assert p.other_rings[0]["nitrogens"] == [[9, 28, "H"]]
+    found = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
+    kept = [s for s in found if s.status == "ok"]
+    best = min(s.ff_energy_kcal for s in kept)
+    good = {(s.orientation, s.other_rings) for s in kept if s.ff_energy_kcal < best + 15.0}
+    want = {(f"s1={a}", f"r2=chair:{b};r2.N9-H={c}")
+            for a in ("equatorial", "axial") for b in ("equatorial", "axial") for c in ("equatorial", "axial")}
+    assert want <= good, sorted(want - good)
+    assert any(s.name.endswith("-n9") and "ring N 9 of" in s.reason for s in kept)
