@@ -511,8 +511,8 @@ def _fusion_kind(mol, ring, other, substituents) -> str:
 
 def _other_rings(mol, ring, rings, fused=()) -> list[dict]:
     """The rings fused to the analysed one (`fused`, in ring order; 'fused': True), the analysable
-    six-membered rings other than the analysed one, then the saturated four-membered rings (cyclobutyl,
-    oxetanyl, azetidinyl), each with the bond that leads from it towards the analysed ring (shortest path
+    six-membered rings other than the analysed one, then the saturated four- and five-membered rings
+    (cyclobutyl, oxetanyl, azetidinyl, cyclopentyl, tetrahydrofuranyl, pyrrolidinyl), each with the bond that leads from it towards the analysed ring (shortest path
     through the molecular graph; for a fused ring, the first shared atom's bond to its analysed-ring
     neighbour outside the fused ring)."""
     out = []
@@ -524,9 +524,9 @@ def _other_rings(mol, ring, rings, fused=()) -> list[dict]:
         out.append({"label": f"r{len(out) + 2}", "atoms": list(r), "link_atom": int(a), "link_to": int(nbr),
                     "fused": True})
     small = sorted(_order_ring(mol, list(r)) for r in mol.GetRingInfo().AtomRings()
-                   if len(r) == 4 and not any(mol.GetAtomWithIdx(i).GetIsAromatic() for i in r)
-                   and all(mol.GetBondBetweenAtoms(r[k], r[(k + 1) % 4]).GetBondType() == Chem.BondType.SINGLE
-                           for k in range(4)))
+                   if len(r) in (4, 5) and not any(mol.GetAtomWithIdx(i).GetIsAromatic() for i in r)
+                   and all(mol.GetBondBetweenAtoms(r[k], r[(k + 1) % len(r)]).GetBondType() == Chem.BondType.SINGLE
+                           for k in range(len(r))))
     for r in list(rings) + small:
         if r == ring or set(r) & set(ring):
             continue

@@ -10,6 +10,9 @@ both puckers. A ring fused to the analysed ring is not restrained: the analysed 
 chair (or envelope), which the embedding and the force field find. chairqm.seeds adds each restraint set
 to the analysed ring's own.
 
+An unfused five-membered ring in a group (cyclopentyl, tetrahydrofuranyl, pyrrolidinyl) is seeded as the
+two envelopes with its link atom as the flap, up and down (link pseudo-equatorial and pseudo-axial).
+
 A restraint set is a list of items: (ring atoms, target torsions) restrains every ring torsion within
 chairqm.seeds.RING_TORSION_TOL of its target; ("torsion", (i, j, k, l), low, high) one torsion to a range.
 """
@@ -24,6 +27,20 @@ from . import ring as ringgeo
 from .chem import covalent_bond_length
 
 FOUR_RING_TORSION = 20.0    # deg, puckered cyclobutane's ring torsion magnitude (20-27 deg, from memory)
+
+
+def _envelope_torsions(flap_height: float = 0.8, bond: float = 1.53) -> np.ndarray:
+    """Ring torsions (torsion j: atoms j..j+3) of a five-membered envelope with atom 0 as the flap: atoms 1-4
+    on a regular pentagon (bond `bond` Å) in a plane, atom 0 lifted by `flap_height` Å (0.8 Å gives torsions
+    of 0, ±29 and ±41 deg; cyclopentane's envelope has about 0, ±26 and ±42, from memory)."""
+    radius = bond / (2.0 * np.sin(np.pi / 5.0))
+    ang = 2.0 * np.pi * np.arange(5) / 5.0
+    x = np.stack([radius * np.cos(ang), radius * np.sin(ang), np.zeros(5)], axis=1)
+    x[0, 2] = flap_height
+    return np.array([ringgeo.dihedral(*(x[(j + i) % 5] for i in range(4))) for j in range(5)])
+
+
+ENVELOPE_TORSIONS = np.round(_envelope_torsions(), 2)
 
 
 def restraint_sets(mol, others, chairs, max_sets: int) -> list:
@@ -43,6 +60,13 @@ def restraint_sets(mol, others, chairs, max_sets: int) -> list:
             # pseudo-axial in the other)
             per_ring.append([[(r0, np.array([sg * FOUR_RING_TORSION * (-1) ** j for j in range(4)]))]
                              for sg in (1.0, -1.0)])
+            continue
+        if len(r0) == 5 and not o.get("fused"):
+            # two envelopes with the flap at the link atom, up and down (link pseudo-equatorial in one,
+            # pseudo-axial in the other); pseudorotation may carry either on to a twist in the optimisation
+            k = r0.index(int(o["link_atom"]))
+            r = r0[k:] + r0[:k]
+            per_ring.append([[(r, sg * ENVELOPE_TORSIONS)] for sg in (1.0, -1.0)])
             continue
         if o.get("fused"):
             # a fused ring shares a ring torsion with the analysed ring, so the analysed ring's template
@@ -127,11 +151,11 @@ def invert_nitrogen(mol, positions, ring, n: int, x: int):
 
 def n_state_sets(others, mol=None) -> int:
     """How many combinations of the other rings' seeded states exist (before :func:`restraint_sets` keeps
-    the first `max_sets`): two per four-membered ring, four per unfused six-membered ring (two chairs,
+    the first `max_sets`): two per four- or unfused five-membered ring, four per unfused six-membered ring (two chairs,
     link equatorial or axial), fused rings not counted (ring N inversion is seeded by copies, not sets)."""
     n = 1
     for o in others:
-        if len(o["atoms"]) == 4:
+        if len(o["atoms"]) == 4 or (len(o["atoms"]) == 5 and not o.get("fused")):
             n *= 2
         elif not o.get("fused") and len(o["atoms"]) == 6:
             n *= 4

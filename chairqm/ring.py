@@ -358,7 +358,11 @@ def other_ring_states(positions, other_rings) -> str:
             parts.append(f"{o['label']}={four_ring_state(x, o['atoms'], o['link_atom'], o['link_to'])}")
             continue
         if len(o["atoms"]) == 5:
-            parts.append(f"{o['label']}={five_ring_form(x[list(o['atoms'])])}")
+            form5 = five_ring_form(x[list(o["atoms"])])
+            if o.get("fused"):
+                parts.append(f"{o['label']}={form5}")
+            else:                          # a ring in a group: also the side of its link (as for four)
+                parts.append(f"{o['label']}={form5}:{_link_side(x, o['atoms'], o['link_atom'], o['link_to'])}")
             continue
         form = classify(cremer_pople(x[list(o["atoms"])]))
         parts.append(f"{o['label']}={form}:{orientation(x, list(o['atoms']), o['link_atom'], o['link_to'], form)}")
@@ -399,11 +403,17 @@ def four_ring_state(positions, atoms, link_atom: int, link_to: int) -> str:
     tau = dihedral(r[0], r[1], r[2], r[3])
     if abs(tau) < FOUR_RING_PLANAR_DEG:
         return "planar:isoclinal"
-    c = r - r.mean(axis=0)
+    return "puckered:" + _link_side(x, atoms, link_atom, link_to)
+
+
+def _link_side(x, atoms, link_atom: int, link_to: int) -> str:
+    """'pseudo-axial' when the link bond makes less than 45 deg with the normal of the ring's least-squares
+    plane, else 'pseudo-equatorial' (four- and five-membered rings in groups)."""
+    c = x[list(atoms)] - x[list(atoms)].mean(axis=0)
     normal = np.linalg.svd(c)[2][-1]
     bond = x[link_to] - x[link_atom]
     cos = abs(float(bond @ normal)) / float(np.linalg.norm(bond))
-    return "puckered:" + ("pseudo-axial" if cos > math.cos(math.radians(45.0)) else "pseudo-equatorial")
+    return "pseudo-axial" if cos > math.cos(math.radians(45.0)) else "pseudo-equatorial"
 
 
 def ring_torsions(coords) -> np.ndarray:

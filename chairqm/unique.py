@@ -158,6 +158,8 @@ def other_ring_rank(text) -> int:
         if ":" not in state:
             continue
         form, _, link = state.partition(":")
+        if form in ("envelope", "twist", "puckered", "planar"):
+            continue                        # a four- or five-membered ring's pucker
         rank += {"chair": 0, "twist-boat": 2}.get(form, 3) + (1 if "axial" in link else 0)
     return rank
 

@@ -479,3 +479,18 @@ def test_an_inverting_ring_nitrogen_in_a_group_is_seeded_on_both_sides():
             for a in ("equatorial", "axial") for b in ("equatorial", "axial") for c in ("equatorial", "axial")}
     assert want <= good, sorted(want - good)
     assert any(s.name.endswith("-n9") and "ring N 9 of" in s.reason for s in kept)
+
+
+def test_a_five_membered_ring_in_a_group_is_seeded_with_its_link_on_both_sides():
+    """Cyclopentylcyclohexane: the cyclopentane is seeded as the two envelopes with the link atom as the
+    flap, so in each chair of the analysed ring its link is pseudo-equatorial in some seeds and
+    pseudo-axial in others (the two positions at a puckered five-membered ring's flap, common practice)."""
+    from chairqm.molecule import perceive
+    p = perceive({"name": "cp", "smiles": "C1CCC(CC1)C1CCCC1"})[0]
+    assert [len(o["atoms"]) for o in p.other_rings] == [5]
+    found = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
+    kept = [s for s in found if s.status == "ok"]
+    for chair in ("s1=equatorial", "s1=axial"):
+        sides = {s.other_rings.split(":")[-1] for s in kept if s.orientation == chair}
+        assert sides == {"pseudo-axial", "pseudo-equatorial"}, (chair, sides)
+        assert all(s.other_rings.split("=")[1].split(":")[0] in ("envelope", "twist") for s in kept)
