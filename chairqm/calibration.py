@@ -53,7 +53,20 @@ def _first_element(fragment: str) -> str | None:
     return None
 
 
-def domain(calibration: Calibration, ring_elements, substituents) -> str:
+def exocyclic_double_bonds(mol, ring) -> int:
+    """How many ring atoms carry a double bond to an atom outside the ring (C=O, C=CH2, S=O, P=O, N-oxide
+    written with a double bond)."""
+    ring = {int(a) for a in ring}
+    n = 0
+    for a in ring:
+        for b in mol.GetAtomWithIdx(a).GetBonds():
+            if b.GetOtherAtomIdx(a) not in ring and b.GetBondTypeAsDouble() == 2.0:
+                n += 1
+                break
+    return n
+
+
+def domain(calibration: Calibration, ring_elements, substituents, exo_double: int = 0) -> str:
     """'' when a molecule lies inside the calibration's domain, else why not, in words.
 
     The domain is what the line was fitted on: monosubstituted cyclohexanes whose group attaches through
@@ -61,12 +74,17 @@ def domain(calibration: Calibration, ring_elements, substituents) -> str:
     a fused ring, a group on a ring heteroatom, a group type absent from the fit — the fitted residual
     spread says nothing about the error: the report stage widens the interval there by the out-of-domain
     spread the calibration carries (:func:`interval_half_width_outside`) or, without one, reports the value
-    uncalibrated rather than with an interval that would look as certain as inside.
+    uncalibrated rather than with an interval that would look as certain as inside. `exo_double`: the
+    ring atoms with an exocyclic double bond (:func:`exocyclic_double_bonds`; cyclohexanones,
+    methylenecyclohexanes), whose flattened ring the fit never saw.
     """
     subs = [s for s in substituents if (s.get("fragment") if isinstance(s, dict) else s.fragment) != "[*][H]"]
     frags = [s.get("fragment") if isinstance(s, dict) else s.fragment for s in subs]
     if any(str(f).count("*") > 1 for f in frags):
         return "outside the calibration's domain (a fused ring system; fitted on monosubstituted cyclohexanes)"
+    if exo_double and list(ring_elements) == ["C"] * 6:
+        return ("outside the calibration's domain (a ring atom with an exocyclic double bond, such as C=O or "
+                "C=CH2; fitted on cyclohexanes)")
     if list(ring_elements) != ["C"] * 6:
         hetero = "/".join(sorted({e for e in ring_elements if e != "C"}))
         return f"outside the calibration's domain (a ring {hetero} atom; fitted on cyclohexanes)"
@@ -81,16 +99,19 @@ def domain(calibration: Calibration, ring_elements, substituents) -> str:
     return ""
 
 
-def widened_outside(calibration: Calibration, ring_elements, substituents) -> bool:
+def widened_outside(calibration: Calibration, ring_elements, substituents, exo_double: int = 0) -> bool:
     """True if a molecule outside the domain gets the widened interval rather than no calibrated value.
 
     The out-of-domain spread was measured on heterocycles (ring O, N, S, Si), groups on a ring heteroatom
     and cyclohexanes with two groups, all of group types the line was fitted on; it is applied to such
     cases only.  A fused ring system or a group attached through an element absent from the fit has no
     measured counterpart and stays uncalibrated; so does everything when the calibration carries no
-    out-of-domain spread.
+    out-of-domain spread. A carbocycle with an exocyclic double bond (`exo_double`; no such case in the
+    second set) stays uncalibrated too.
     """
     if not has_outside_spread(calibration):
+        return False
+    if exo_double and list(ring_elements) == ["C"] * 6:
         return False
     subs = [s for s in substituents if (s.get("fragment") if isinstance(s, dict) else s.fragment) != "[*][H]"]
     frags = [s.get("fragment") if isinstance(s, dict) else s.fragment for s in subs]

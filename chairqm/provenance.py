@@ -104,10 +104,21 @@ def record_settings(stage: str, settings: dict) -> dict:
     return {k: _RECORD_VIEW.get(k, lambda v: v)(s.get(k)) for k in RESULT_SETTINGS[stage].record}
 
 
+def code_version() -> str:
+    """The package version and a digest of its Python sources ('0.1.0+3f2a...'; the report's own code
+    excepted, chairqm.reference_cache.code_digest): an edit of the package that keeps its version number
+    still reruns the jobs, which reuse every per-conformer record whose inputs did not change (records are
+    keyed by the version alone) and label it by the current rules."""
+    from . import __version__
+    from .reference_cache import code_digest
+    return f"{__version__}+{code_digest()}"
+
+
 def fingerprint(stage: str, settings: dict, version: str, **extra) -> str:
-    """One string of everything that changes `stage`'s results: its settings, the package version and any
-    `extra` facts (e.g. the molecule's input). Snakemake reruns a job whose fingerprint changed (an edit
-    inside the installed package is invisible to it, hence the version)."""
+    """One string of everything that changes `stage`'s results: its settings, the package version (with
+    :func:`code_version`, its sources' digest) and any `extra` facts (e.g. the molecule's input). Snakemake
+    reruns a job whose fingerprint changed (an edit inside the installed package is invisible to it, hence
+    the version)."""
     d = job_settings(stage, settings)
     d.update(extra)
     d["chairqm_version"] = version

@@ -371,7 +371,8 @@ def auto_decision(p, calibration) -> dict:
     if calibration is None:
         reasons.append("no GFN2-xTB calibration for these settings (no molecule lies inside a calibrated domain)")
     else:
-        why = cq_cal.domain(calibration, p.ring_elements, p.substituents)
+        why = cq_cal.domain(calibration, p.ring_elements, p.substituents,
+                            cq_cal.exocyclic_double_bonds(p.mol, p.ring))
         if why:
             reasons.append(why)
     if reasons:

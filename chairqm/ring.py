@@ -41,6 +41,11 @@ from .errors import ChairqmError
 # ---- classification thresholds (degrees / Å); tested in tests/test_ring.py -------------------------
 Q_PLANAR_MAX = 0.10          # Å: total puckering amplitude below this → 'other' (essentially planar)
 CHAIR_THETA_MAX = 35.0       # deg: chair if theta <= 35 or theta >= 145
+# deg: the same for a ring with a flat (sp2) ring atom (C=O, C=CH2, an amide N). Such a ring has no ideal
+# chair: its chair is flattened towards the envelope (sofa, theta = 54.7) at that atom, one basin with it
+# (1,3-dioxan-5-one's two chair-like minima lie at theta of about 35 and 51 with GFN2-xTB), so the polar
+# caps up to this latitude, short of the boat / twist-boat band, are its chairs
+CHAIR_THETA_MAX_FLAT_ATOM = 60.0
 EQUATOR_THETA_MIN = 65.0     # deg: boat / twist-boat if 65 <= theta <= 115
 PHI_TOL = 12.0               # deg: |phi - ideal| allowed for boat, twist-boat, envelope, half-chair
 # deg: a ring atom whose ring bonds and one exocyclic bond have bond angles summing to at least this is
@@ -207,10 +212,11 @@ def _phi_offset(phi: float, base: float) -> float:
     return min(d, 60.0 - d)
 
 
-def classify(pucker: Pucker) -> str:
+def classify(pucker: Pucker, chair_theta_max: float = CHAIR_THETA_MAX) -> str:
     """Ring form from Cremer–Pople coordinates, with the module thresholds.
 
-    'other' if Q < Q_PLANAR_MAX (nearly planar); 'chair' if theta <= CHAIR_THETA_MAX or >= 180 - it;
+    'other' if Q < Q_PLANAR_MAX (nearly planar); 'chair' if theta <= chair_theta_max or >= 180 - it
+    (CHAIR_THETA_MAX; `measure` passes CHAIR_THETA_MAX_FLAT_ATOM for a ring with a flat ring atom);
     on the equator band (EQUATOR_THETA_MIN <= theta <= 180 - it): 'boat' within PHI_TOL of k*60 deg,
     'twist-boat' within PHI_TOL of 30 + k*60 deg; in the band between: 'envelope' near k*60 deg and
     'half-chair' near 30 + k*60 deg; anything else 'other'. Positions of the forms: see module docstring.
@@ -218,7 +224,7 @@ def classify(pucker: Pucker) -> str:
     if pucker.q < Q_PLANAR_MAX:
         return "other"
     t = pucker.theta
-    if t <= CHAIR_THETA_MAX or t >= 180.0 - CHAIR_THETA_MAX:
+    if t <= chair_theta_max or t >= 180.0 - chair_theta_max:
         return "chair"
     near0 = _phi_offset(pucker.phi, 0.0) <= PHI_TOL
     near30 = _phi_offset(pucker.phi, 30.0) <= PHI_TOL
@@ -263,6 +269,16 @@ def trigonal_ring_atoms(mol, ring) -> list[int]:
     """The ring atoms of an RDKit molecule (explicit H) with three neighbours (an amide or N-aryl ring N,
     a ring N-H): the ones `measure` may label 'planar'."""
     return [int(a) for a in ring if mol.GetAtomWithIdx(int(a)).GetDegree() == 3]
+
+
+def _is_flat(x, ring, k) -> bool:
+    """True when ring position k with three neighbours is flat: the bond angles to its two ring neighbours
+    and to its nearest atom outside the ring (its exocyclic neighbour) sum to PLANAR_ANGLE_SUM or more."""
+    others = [i for i in range(len(x)) if i not in set(ring)]
+    if not others:
+        return False
+    d = np.linalg.norm(x[others] - x[ring[k]], axis=1)
+    return _angle_sum(x, ring, k, others[int(np.argmin(d))]) >= PLANAR_ANGLE_SUM
 
 
 def _angle_sum(x, ring, k, first_atom) -> float:
@@ -334,9 +350,10 @@ def measure(positions, ring, substituents, other_rings=(), trigonal_atoms=()) ->
     x = np.asarray(positions, dtype=float)
     ring = list(ring)
     p = cremer_pople(x[ring])
-    form = classify(p)
-    subs = sorted(substituents, key=lambda s: _sub_key(s.id))
     tri = {int(a) for a in trigonal_atoms}
+    flat = any(_is_flat(x, ring, ring.index(a)) for a in tri if a in ring)
+    form = classify(p, CHAIR_THETA_MAX_FLAT_ATOM if flat else CHAIR_THETA_MAX)
+    subs = sorted(substituents, key=lambda s: _sub_key(s.id))
     text = ";".join(f"{s.id}={orientation(x, ring, s.ring_atom, s.first_atom, form, int(s.ring_atom) in tri)}"
                     for s in subs)
     out = {"ring_form": form, "q": p.q, "theta": p.theta, "phi": p.phi, "orientation": text}

@@ -228,3 +228,20 @@ def test_outside_points_read_a_small_finished_folder(tmp_path):
     assert a["error_kcal"] == pytest.approx(-0.8 + 0.5)
     assert b["used"].startswith("no families.csv") and b["computed_kcal"] is None
     assert d["used"].startswith("a compared chair is missing")
+
+
+def test_a_ring_with_an_exocyclic_double_bond_is_outside_the_domain_and_not_widened():
+    # the line was fitted on cyclohexanes; a cyclohexanone or methylenecyclohexane ring is flattened at its
+    # sp2 atom and the second set holds no such case, so its value stays uncalibrated
+    from chairqm.molecule import perceive
+    c = next(c for c in cq_cal.load_all() if not c.settings.get("solvent") and not c.settings.get("refine"))
+    for smiles in ("CC1CCC(=C)CC1", "CC1CCC(=O)CC1"):
+        p = perceive({"name": "m", "smiles": smiles})[0]
+        exo = cq_cal.exocyclic_double_bonds(p.mol, p.ring)
+        assert exo == 1
+        why = cq_cal.domain(c, p.ring_elements, p.substituents, exo)
+        assert "exocyclic double bond" in why
+        assert not cq_cal.widened_outside(c, p.ring_elements, p.substituents, exo)
+    p = perceive({"name": "m", "smiles": "CC1CCCCC1"})[0]
+    assert cq_cal.exocyclic_double_bonds(p.mol, p.ring) == 0
+    assert cq_cal.domain(c, p.ring_elements, p.substituents, 0) == ""

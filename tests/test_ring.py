@@ -273,3 +273,23 @@ def test_four_membered_ring_pucker_and_link_position():
     assert state in ("puckered:pseudo-equatorial", "puckered:pseudo-axial")
     square = np.array([[0, 0, 0], [1.55, 0, 0], [1.55, 1.55, 0], [0, 1.55, 0], [-0.9, -0.9, 0.0]], dtype=float)
     assert four_ring_state(square, [0, 1, 2, 3], 0, 4) == "planar:isoclinal"
+
+
+def test_a_ring_with_a_flat_atom_calls_its_flattened_chairs_chairs():
+    """1,3-Dioxan-5-ones are chairs flattened at the carbonyl carbon (from memory); with GFN2-xTB their two
+    chair-like minima sit at theta of about 35 and 51 deg, where an all-sp3 ring would be an envelope. A ring
+    with a flat ring atom gets the wider polar cap (CHAIR_THETA_MAX_FLAT_ATOM), an all-sp3 ring does not."""
+    from chairqm import ring as R
+    from chairqm import seeds as S
+    from chairqm.molecule import perceive
+    p = perceive({"name": "d", "smiles": "CC1OCC(=O)CO1"})[0]
+    tri = R.trigonal_ring_atoms(p.mol, p.ring)
+    found = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
+    chairs = [s for s in found if s.status == "ok" and s.template.startswith("chair")]
+    assert chairs
+    for s in chairs:
+        m = R.measure(s.positions, p.ring, p.substituents, p.other_rings, tri)
+        assert m["ring_form"] == "chair", (s.name, m)
+    pucker = R.Pucker(q=0.47, theta=50.8, phi=0.0, q2=0.36, q3=0.30)
+    assert R.classify(pucker) == "envelope"
+    assert R.classify(pucker, R.CHAIR_THETA_MAX_FLAT_ATOM) == "chair"

@@ -274,3 +274,17 @@ def test_budgeted_map_starts_nothing_once_the_budget_is_spent(threads):
     assert sum(done) >= 10 and len(done) <= 2 + threads     # stopped soon after the total passed 10
     assert out[-1] is None                                  # 6 × 9 = 54 > 10: the last one never ran
     assert records.budgeted_map(_square, [1, 2], threads, budget=0, cost=lambda r: r) == [1, 4]
+
+
+def test_jobs_rerun_when_the_package_code_changes_under_the_same_version(monkeypatch):
+    """The rule fingerprints carry the version and a digest of the package's sources: an edited package
+    with an unchanged version number reruns the jobs (which reuse every record whose inputs did not change)."""
+    from chairqm import __version__
+    from chairqm import reference_cache
+    v = provenance.code_version()
+    assert v == f"{__version__}+{reference_cache.code_digest()}"
+    settings = cq_config.settings_defaults()
+    before = provenance.fingerprint("minima", settings, v)
+    monkeypatch.setattr(reference_cache, "code_digest", lambda: "f" * 16)
+    assert provenance.code_version() != v
+    assert provenance.fingerprint("minima", settings, provenance.code_version()) != before

@@ -55,6 +55,7 @@ def run(cfg, plan, name, threads=1):
     import pandas as pd
 
     from .. import __version__
+    from .. import ring as cq_ring
     from .. import unique as cq_unique
     settings = cfg["settings"]
     p = load_molecule(name)
@@ -73,7 +74,11 @@ def run(cfg, plan, name, threads=1):
         old = reusable(out_json, key, needs=[work / f"{seed}.xyz"])
         if old is not None:
             recs[seed] = old                # finished earlier with the same input and settings (a failed
-            continue                        # record is retried)
+            if old.get("measured"):         # record is retried); its labels are measured again, so a
+                old["measured"] = cq_ring.measure(   # rerun names forms by the current rules
+                    read_xyz(work / f"{seed}.xyz").positions, p.ring, p.substituents, p.other_rings,
+                    cq_ring.trigonal_ring_atoms(p.mol, p.ring))
+            continue
         jobs.append((name, seed, key, es, opt, str(xyz_in), str(work / f"{seed}.xyz"), str(out_json)))
     budget = int(opt.get("max_gradient_calls") or 0)
     spent = sum(int(r.get("gradient_calls") or 0) for r in recs.values())

@@ -48,8 +48,10 @@ def calibrate_rows(rows, settings, cal=False, plan=None, per_molecule=True) -> s
         if r.get("status") != "ok":
             continue
         mol = _plan_molecule(plan, r.get("molecule"))
-        why = cq_cal.domain(cal, mol.ring_elements, mol.substituents) if mol is not None else ""
-        widen = bool(why) and cq_cal.widened_outside(cal, mol.ring_elements, mol.substituents)
+        exo = (cq_cal.exocyclic_double_bonds(mol.mol, mol.ring)
+               if mol is not None and getattr(mol, "mol", None) is not None else 0)
+        why = cq_cal.domain(cal, mol.ring_elements, mol.substituents, exo) if mol is not None else ""
+        widen = bool(why) and cq_cal.widened_outside(cal, mol.ring_elements, mol.substituents, exo)
         if why:
             r["calibration_domain"] = why
             outside += 1

@@ -128,6 +128,7 @@ def _final_list(p, minima, recs, work, settings):
     """The conformers after the frequency check, re-measured on their final geometry and merged again: a
     mode followed downhill can land on a minimum that another seed reached too. A conformer outside the
     frequency window is usable without a Hessian (frequency_checked False)."""
+    from .. import ring as cq_ring
     from .. import unique as cq_unique
     confs = []
     for c in minima["conformers"]:
@@ -137,6 +138,9 @@ def _final_list(p, minima, recs, work, settings):
         usable = rec["status"] == "ok" and (not checked or rec["proof"]["n_imaginary"] == 0)
         meas = rec.get("measured") or {k: c.get(k) for k in ("ring_form", "q", "theta", "phi", "orientation",
                                                              "other_rings")}
+        if rec.get("measured") and (work / f"{cid}.xyz").is_file():   # labels by the current rules, also
+            meas = cq_ring.measure(read_xyz(work / f"{cid}.xyz").positions, p.ring, p.substituents,  # when reused
+                                   p.other_rings, cq_ring.trigonal_ring_atoms(p.mol, p.ring))
         confs.append({"conformer": cid, "seed": c["seed"], "usable": usable,
                       "status": rec["status"] if rec["status"] != "ok" or usable else "saddle",
                       "reason": rec.get("reason", ""), "degeneracy": c["degeneracy"], **meas,

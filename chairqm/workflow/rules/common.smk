@@ -44,8 +44,9 @@ wildcard_constraints:
 
 
 def fingerprint(stage, **extra):
-    """Every result-relevant setting of `stage` plus the package version, as one params string."""
-    return cq_provenance.fingerprint(stage, SETTINGS, chairqm.__version__, **extra)
+    """Every result-relevant setting of `stage` plus the package version and a digest of its sources, as
+    one params string (chairqm.provenance.code_version)."""
+    return cq_provenance.fingerprint(stage, SETTINGS, cq_provenance.code_version(), **extra)
 
 
 def stage_outputs(stage):
