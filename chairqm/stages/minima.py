@@ -51,6 +51,9 @@ def _optimise_one(job):
     return rec
 
 
+LABELS = ("ring_form", "orientation", "other_rings")     # the measured words a reused record takes anew
+
+
 def run(cfg, plan, name, threads=1):
     import pandas as pd
 
@@ -74,10 +77,11 @@ def run(cfg, plan, name, threads=1):
         old = reusable(out_json, key, needs=[work / f"{seed}.xyz"])
         if old is not None:
             recs[seed] = old                # finished earlier with the same input and settings (a failed
-            if old.get("measured"):         # record is retried); its labels are measured again, so a
-                old["measured"] = cq_ring.measure(   # rerun names forms by the current rules
+            if old.get("measured"):         # record is retried); its labels (not its numbers, which the
+                now = cq_ring.measure(      # file's rounding would change) follow the current rules
                     read_xyz(work / f"{seed}.xyz").positions, p.ring, p.substituents, p.other_rings,
                     cq_ring.trigonal_ring_atoms(p.mol, p.ring))
+                old["measured"].update({k: now[k] for k in LABELS if k in now})
             continue
         jobs.append((name, seed, key, es, opt, str(xyz_in), str(work / f"{seed}.xyz"), str(out_json)))
     budget = int(opt.get("max_gradient_calls") or 0)

@@ -138,9 +138,10 @@ def _final_list(p, minima, recs, work, settings):
         usable = rec["status"] == "ok" and (not checked or rec["proof"]["n_imaginary"] == 0)
         meas = rec.get("measured") or {k: c.get(k) for k in ("ring_form", "q", "theta", "phi", "orientation",
                                                              "other_rings")}
-        if rec.get("measured") and (work / f"{cid}.xyz").is_file():   # labels by the current rules, also
-            meas = cq_ring.measure(read_xyz(work / f"{cid}.xyz").positions, p.ring, p.substituents,  # when reused
-                                   p.other_rings, cq_ring.trigonal_ring_atoms(p.mol, p.ring))
+        if rec.get("measured") and (work / f"{cid}.xyz").is_file():   # labels (not numbers) by the current
+            now = cq_ring.measure(read_xyz(work / f"{cid}.xyz").positions, p.ring, p.substituents,  # rules,
+                                  p.other_rings, cq_ring.trigonal_ring_atoms(p.mol, p.ring))   # also when reused
+            meas = {**meas, **{k: now[k] for k in ("ring_form", "orientation", "other_rings") if k in now}}
         confs.append({"conformer": cid, "seed": c["seed"], "usable": usable,
                       "status": rec["status"] if rec["status"] != "ok" or usable else "saddle",
                       "reason": rec.get("reason", ""), "degeneracy": c["degeneracy"], **meas,
