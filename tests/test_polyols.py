@@ -75,3 +75,22 @@ def test_gas_phase_result_resting_on_hydrogen_bonds_is_flagged(tmp_path):
     assert row["status"] == "ok"
     assert row["preferred_family"] == "chair s1=axial;s2=axial;s3=axial"
     assert str(row["flag"]).lower() == "true" and "intramolecular hydrogen bonds" in row["flag_reason"]
+
+
+BETA_GLC = "C([C@@H]1[C@H]([C@@H]([C@H]([C@@H](O1)O)O)O)O)O"     # beta-D-glucopyranose
+
+
+@pytest.mark.slow
+def test_beta_d_glucose_in_water_is_the_all_equatorial_4c1_chair(tmp_path):
+    # beta-D-glucopyranose in water: the 4C1 chair with every substituent equatorial dominates (textbook);
+    # checked as: that chair is the preferred family, the ring-flipped 1C4 chair lies above it, and the
+    # non-chair forms hold less than half of the population (so the 4C1 chair holds most of it)
+    from _runs import run_summary
+    row = run_summary({"molecules": [{"name": "beta-glc", "smiles": BETA_GLC}],
+                       "settings": {"solvent": {"model": "alpb", "name": "water"},
+                                    "analysis": {"reference_groups": False}}},
+                      tmp_path / "glc", timeout=2400).iloc[0]
+    assert row["status"] == "ok", row["reason"]
+    assert row["preferred_family"] == "chair " + ";".join(f"s{i}=equatorial" for i in range(1, 6))
+    assert float(row["chair_dg_kcal"]) > 1.0
+    assert float(row["twist_boat_population"]) < 0.5
