@@ -20,6 +20,7 @@ chairqm.seeds.RING_TORSION_TOL of its target; ("torsion", (i, j, k, l), low, hig
 from __future__ import annotations
 
 import itertools
+import math
 
 import numpy as np
 
@@ -43,10 +44,11 @@ def _envelope_torsions(flap_height: float = 0.8, bond: float = 1.53) -> np.ndarr
 ENVELOPE_TORSIONS = np.round(_envelope_torsions(), 2)
 
 
-def restraint_sets(mol, others, chairs, max_sets: int) -> list:
-    """One restraint set per combination of the other rings' states (at most `max_sets`); [[]] when the
-    molecule has no other ring. `others`: chairqm.molecule.Perceived.other_rings; `chairs`: the two chair
-    templates as (Q, theta, phi).
+def restraint_sets(mol, others, chairs, max_sets: int) -> tuple[list, int]:
+    """(sets, total): one restraint set per combination of the other rings' states, the first `max_sets`
+    of them, and how many combinations there are in all (ring N inversion is seeded by copies, not sets;
+    see :func:`truncation_note`); ([[]], 1) when the molecule has no other ring. `others`:
+    chairqm.molecule.Perceived.other_rings; `chairs`: the two chair templates as (Q, theta, phi).
 
     In a chair with ring torsion F–A–B–C = τ at the link atom A (B, C its ring neighbours, X–A the link),
     the equatorial link is anti to C (X–A–B–C ≈ sign(τ)·175°) and the axial one gauche (≈ −sign(τ)·65°),
@@ -79,21 +81,23 @@ def restraint_sets(mol, others, chairs, max_sets: int) -> list:
         states = []
         for q, theta, phi in chairs:
             tors = np.round(ringgeo.ring_torsions(ringgeo.ring_from_pucker(q, theta, phi, lengths)), 4)
-            for side in _sides(tors, r, 0, int(o["link_to"])):
+            for side in _sides(tors, r, int(o["link_to"])):
                 states.append([(r, tors), side])
         per_ring.append(states)
     if not per_ring:
-        return [[]]
-    return [[x for part in c for x in part] for c in itertools.product(*per_ring)][:max_sets]
+        return [[]], 1
+    total = math.prod(len(states) for states in per_ring)
+    sets = [[x for part in c for x in part] for c in itertools.islice(itertools.product(*per_ring), max_sets)]
+    return sets, total
 
 
-def _sides(tors, r, j: int, x: int) -> list:
-    """The equatorial and the axial restraint of the exocyclic bond r[j]–x in a chair with ring torsions
-    `tors` (torsion i runs over r[i], r[i+1], r[i+2], r[i+3]): with A = r[j], B, C the next two ring atoms
-    and τ the ring torsion F–A–B–C, the equatorial bond is anti to C (X–A–B–C ≈ sign(τ)·175°) and the
-    axial one gauche (≈ −sign(τ)·65°), ideal tetrahedral geometry."""
-    sign = 1.0 if tors[(j - 1) % 6] > 0 else -1.0
-    t = (int(x), r[j], r[(j + 1) % 6], r[(j + 2) % 6])
+def _sides(tors, r, x: int) -> list:
+    """The equatorial and the axial restraint of the exocyclic bond r[0]–x in a chair with ring torsions
+    `tors` (torsion i runs over r[i], r[i+1], r[i+2], r[i+3]): with A = r[0], B, C the next two ring atoms
+    and τ the ring torsion F–A–B–C (torsion 5), the equatorial bond is anti to C (X–A–B–C ≈ sign(τ)·175°)
+    and the axial one gauche (≈ −sign(τ)·65°), ideal tetrahedral geometry."""
+    sign = 1.0 if tors[5] > 0 else -1.0
+    t = (int(x), r[0], r[1], r[2])
     return [("torsion", t, *sorted((sign * 160.0, sign * 180.0))),
             ("torsion", t, -sign * 65.0 - 15.0, -sign * 65.0 + 15.0)]
 
@@ -147,19 +151,6 @@ def invert_nitrogen(mol, positions, ring, n: int, x: int):
     d = (X[idx] - p0) @ normal
     X[idx] = X[idx] - 2.0 * d[:, None] * normal[None, :]
     return X
-
-
-def n_state_sets(others, mol=None) -> int:
-    """How many combinations of the other rings' seeded states exist (before :func:`restraint_sets` keeps
-    the first `max_sets`): two per four- or unfused five-membered ring, four per unfused six-membered ring (two chairs,
-    link equatorial or axial), fused rings not counted (ring N inversion is seeded by copies, not sets)."""
-    n = 1
-    for o in others:
-        if len(o["atoms"]) == 4 or (len(o["atoms"]) == 5 and not o.get("fused")):
-            n *= 2
-        elif not o.get("fused") and len(o["atoms"]) == 6:
-            n *= 4
-    return n
 
 
 def truncation_note(kept: int, total: int) -> str:

@@ -14,8 +14,11 @@ the JSON schema's (``chairqm/schemas/config.schema.json``), never repeated here.
 
 from __future__ import annotations
 
+import functools
+import hashlib
 import json
 from dataclasses import dataclass
+from pathlib import Path
 
 _ENGINE = ("engine", "method", "solvent", "accuracy", "electronic_temperature_k")
 
@@ -104,13 +107,25 @@ def record_settings(stage: str, settings: dict) -> dict:
     return {k: _RECORD_VIEW.get(k, lambda v: v)(s.get(k)) for k in RESULT_SETTINGS[stage].record}
 
 
+@functools.lru_cache(maxsize=1)
+def code_digest() -> str:
+    """SHA-256 (first 16 hex digits) over the package's Python sources, report/ excepted, in path order."""
+    root = Path(__file__).resolve().parent
+    h = hashlib.sha256()
+    for f in sorted(root.rglob("*.py")):
+        rel = f.relative_to(root).as_posix()
+        if rel.startswith("report/"):
+            continue
+        h.update(rel.encode() + b"\0" + f.read_bytes() + b"\0")
+    return h.hexdigest()[:16]
+
+
 def code_version() -> str:
     """The package version and a digest of its Python sources ('0.1.0+3f2a...'; the report's own code
-    excepted, chairqm.reference_cache.code_digest): an edit of the package that keeps its version number
+    excepted, :func:`code_digest`): an edit of the package that keeps its version number
     still reruns the jobs, which reuse every per-conformer record whose inputs did not change (records are
     keyed by the version alone) and label it by the current rules."""
     from . import __version__
-    from .reference_cache import code_digest
     return f"{__version__}+{code_digest()}"
 
 

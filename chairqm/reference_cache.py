@@ -21,7 +21,6 @@ computed again next time).
 
 from __future__ import annotations
 
-import functools
 import hashlib
 import json
 import os
@@ -49,28 +48,17 @@ def folder(settings: dict | None = None) -> Path | None:
     return Path(text).expanduser()
 
 
-@functools.lru_cache(maxsize=1)
-def code_digest() -> str:
-    """SHA-256 (first 16 hex digits) over the package's Python sources, report/ excepted, in path order."""
-    root = Path(__file__).resolve().parent
-    h = hashlib.sha256()
-    for f in sorted(root.rglob("*.py")):
-        rel = f.relative_to(root).as_posix()
-        if rel.startswith("report/"):
-            continue
-        h.update(rel.encode() + b"\0" + f.read_bytes() + b"\0")
-    return h.hexdigest()[:16]
-
-
 def key(fragment: str, settings: dict) -> dict:
     """Everything a group's same-method A-value depends on (besides the temperature)."""
+    from . import provenance
     from .provenance import job_settings
     parts = {}
     for stage in _KEY_STAGES:
         block = job_settings(stage, settings)
         block.pop("temperatures_k", None)
         parts[stage] = block
-    return {"fragment": fragment, "settings": parts, "chairqm_version": __version__, "code": code_digest()}
+    return {"fragment": fragment, "settings": parts, "chairqm_version": __version__,
+            "code": provenance.code_digest()}
 
 
 def _path(fragment: str, settings: dict) -> Path | None:

@@ -265,20 +265,25 @@ def slot_elevations(positions, ring, k: int, normal=None) -> tuple[float, float]
     return e1, e2
 
 
-def trigonal_ring_atoms(mol, ring) -> list[int]:
-    """The ring atoms of an RDKit molecule (explicit H) with three neighbours (an amide or N-aryl ring N,
-    a ring N-H): the ones `measure` may label 'planar'."""
-    return [int(a) for a in ring if mol.GetAtomWithIdx(int(a)).GetDegree() == 3]
+def trigonal_ring_atoms(mol, ring) -> list[tuple[int, int]]:
+    """(ring atom, its one exocyclic neighbour) for the ring atoms of an RDKit molecule (explicit H) with
+    three neighbours (an amide or N-aryl ring N, a ring N-H, a ring C=O carbon): the ones `measure` may
+    label 'planar'."""
+    ring_set = {int(a) for a in ring}
+    out = []
+    for a in ring:
+        atom = mol.GetAtomWithIdx(int(a))
+        if atom.GetDegree() == 3:
+            exo = [n.GetIdx() for n in atom.GetNeighbors() if n.GetIdx() not in ring_set]
+            if len(exo) == 1:
+                out.append((int(a), int(exo[0])))
+    return out
 
 
-def _is_flat(x, ring, k) -> bool:
+def _is_flat(x, ring, k, exo: int) -> bool:
     """True when ring position k with three neighbours is flat: the bond angles to its two ring neighbours
-    and to its nearest atom outside the ring (its exocyclic neighbour) sum to PLANAR_ANGLE_SUM or more."""
-    others = [i for i in range(len(x)) if i not in set(ring)]
-    if not others:
-        return False
-    d = np.linalg.norm(x[others] - x[ring[k]], axis=1)
-    return _angle_sum(x, ring, k, others[int(np.argmin(d))]) >= PLANAR_ANGLE_SUM
+    and to its exocyclic neighbour `exo` sum to PLANAR_ANGLE_SUM or more."""
+    return _angle_sum(x, ring, k, int(exo)) >= PLANAR_ANGLE_SUM
 
 
 def _angle_sum(x, ring, k, first_atom) -> float:
@@ -345,13 +350,13 @@ def measure(positions, ring, substituents, other_rings=(), trigonal_atoms=()) ->
     """Ring form, Q, theta, phi and the orientation string ('s1=axial;s2=equatorial') of one structure;
     with `other_rings` (chairqm.molecule.Perceived.other_rings) also 'other_rings': each other ring's form
     and the position on it of the bond towards the analysed ring ('r2=chair:equatorial'), '' for none.
-    `trigonal_atoms`: the ring atoms with three neighbours (`trigonal_ring_atoms`), whose one exocyclic
-    bond is labelled 'planar' when the atom is flat."""
+    `trigonal_atoms`: (ring atom, exocyclic neighbour) of the ring atoms with three neighbours
+    (`trigonal_ring_atoms`), whose one exocyclic bond is labelled 'planar' when the atom is flat."""
     x = np.asarray(positions, dtype=float)
     ring = list(ring)
     p = cremer_pople(x[ring])
-    tri = {int(a) for a in trigonal_atoms}
-    flat = any(_is_flat(x, ring, ring.index(a)) for a in tri if a in ring)
+    tri = {int(a): int(e) for a, e in trigonal_atoms}
+    flat = any(_is_flat(x, ring, ring.index(a), e) for a, e in tri.items() if a in ring)
     form = classify(p, CHAIR_THETA_MAX_FLAT_ATOM if flat else CHAIR_THETA_MAX)
     subs = sorted(substituents, key=lambda s: _sub_key(s.id))
     text = ";".join(f"{s.id}={orientation(x, ring, s.ring_atom, s.first_atom, form, int(s.ring_atom) in tri)}"

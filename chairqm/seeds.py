@@ -325,10 +325,13 @@ def _frame(ctx, X, ring_xyz):
     return np.round(T(X), DECIMALS_OUT) + 0.0
 
 
-def _other_ring_chairs(ctx) -> list:
-    """One restraint set per combination of the other rings' states (chairqm.other_rings)."""
+def _other_ring_chairs(ctx) -> tuple[list, str]:
+    """(sets, cut): one restraint set per combination of the other rings' states, at most
+    MAX_OTHER_RING_SETS of them (chairqm.other_rings), and the words for seeds.csv when that left
+    combinations out ('' when none)."""
     chairs = [(t.q, t.theta, t.phi) for t in TEMPLATES if t.form == "chair"]
-    return other_rings.restraint_sets(ctx.mol, ctx.others, chairs, MAX_OTHER_RING_SETS)
+    sets, total = other_rings.restraint_sets(ctx.mol, ctx.others, chairs, MAX_OTHER_RING_SETS)
+    return sets, other_rings.truncation_note(len(sets), total)
 
 
 def _nitrogen_inversions(ctx, seeds) -> list:
@@ -363,11 +366,6 @@ def _nitrogen_inversions(ctx, seeds) -> list:
     return out
 
 
-def _other_ring_cut(ctx, sets) -> str:
-    """The words for seeds.csv when MAX_OTHER_RING_SETS left combinations of the other rings' states out."""
-    return other_rings.truncation_note(len(sets), other_rings.n_state_sets(ctx.others, ctx.mol))
-
-
 # ---- the public entry points ------------------------------------------------------------------------
 def build_seeds(mol, ring, substituents, settings=None, other_rings=()) -> list[Seed]:
     """Every seed of one molecule — kept, merged, screened and failed — in a fixed order.
@@ -380,7 +378,7 @@ def build_seeds(mol, ring, substituents, settings=None, other_rings=()) -> list[
     """
     settings = check_settings(settings)
     ctx = _prepare(mol, ring, substituents, settings, other_rings)
-    other_sets = _other_ring_chairs(ctx)
+    other_sets, cut = _other_ring_chairs(ctx)
     seed0 = settings["random_seed"]
     free, fixed = _choices(ctx)
     combos = list(itertools.product((0, 1), repeat=len(free)))
@@ -500,7 +498,6 @@ def build_seeds(mol, ring, substituents, settings=None, other_rings=()) -> list[
         out.append(Seed(name=tpl.name, template=tpl.name, status="screened",
                         reason="twist-boats switched off (seeds.twist_boats = false)"))
     out += _nitrogen_inversions(ctx, out)
-    cut = _other_ring_cut(ctx, other_sets)
     if cut:                                 # never silent: every seed that was built says so
         for s in out:
             if s.status == "ok":

@@ -454,7 +454,10 @@ def test_a_cut_in_the_other_rings_combinations_is_said_in_every_seed(monkeypatch
     from chairqm import other_rings
     from chairqm.molecule import perceive
     p = perceive({"name": "b", "smiles": "C1CCC(CC1)C1CCCCC1"})[0]
-    assert other_rings.n_state_sets(p.other_rings) == 4
+    chairs = [(t.q, t.theta, t.phi) for t in S.TEMPLATES if t.form == "chair"]
+    sets, total = other_rings.restraint_sets(p.mol, p.other_rings, chairs, 16)
+    assert (len(sets), total) == (4, 4)
+    assert len(other_rings.restraint_sets(p.mol, p.other_rings, chairs, 2)[0]) == 2
     full = S.build_seeds(p.mol, p.ring, p.substituents, {"twist_boats": False}, p.other_rings)
     assert not any("combinations of their states" in s.reason for s in full)
     monkeypatch.setattr(S, "MAX_OTHER_RING_SETS", 2)

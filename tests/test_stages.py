@@ -280,11 +280,10 @@ def test_jobs_rerun_when_the_package_code_changes_under_the_same_version(monkeyp
     """The rule fingerprints carry the version and a digest of the package's sources: an edited package
     with an unchanged version number reruns the jobs (which reuse every record whose inputs did not change)."""
     from chairqm import __version__
-    from chairqm import reference_cache
     v = provenance.code_version()
-    assert v == f"{__version__}+{reference_cache.code_digest()}"
+    assert v == f"{__version__}+{provenance.code_digest()}"
     settings = cq_config.settings_defaults()
     before = provenance.fingerprint("minima", settings, v)
-    monkeypatch.setattr(reference_cache, "code_digest", lambda: "f" * 16)
+    monkeypatch.setattr(provenance, "code_digest", lambda: "f" * 16)
     assert provenance.code_version() != v
     assert provenance.fingerprint("minima", settings, provenance.code_version()) != before
