@@ -176,6 +176,14 @@ def settings_key(settings: dict | None) -> dict:
             "refine": _norm_refine(s.get("refine"), solvent)}
 
 
+def _optimizer_of(settings: dict | None) -> str:
+    """The optimiser a run's minima came from ('auto' resolved), stored beside a calibration's key for the
+    record: it is not part of the key (chairqm.optimize.DEFAULT_OPTIMIZER says which optimiser the
+    shipped calibrations were fitted with)."""
+    from .optimize import _canonical_optimizer
+    return _canonical_optimizer(str(((settings or {}).get("optimize") or {}).get("optimizer", "auto")))
+
+
 def _norm_refine(block, solvent=None):
     """The DFT level of a refined run as one string, None for an unrefined run (or a stored calibration
     that predates refinement).  Only what changes the refined energies enters: functional, basis,
@@ -392,7 +400,7 @@ def calibrate_run(out_dir, config, temperature_k: float = REFERENCE_TEMPERATURE_
         raise ChairqmError(f"only {len(used)} molecule(s) of {out} have both a computed and a tabulated "
                            "A-value; a calibration needs at least 3: check summary.csv for failures")
     cal = fit([p["computed_kcal"] for p in used], [p["experimental_kcal"] for p in used],
-              settings=settings_key(cfg.get("settings")))
+              settings={**settings_key(cfg.get("settings")), "optimizer": _optimizer_of(cfg.get("settings"))})
     cal.temperature_k = float(temperature_k)
     cal.points = [{k: (None if isinstance(v, float) and math.isnan(v) else v) for k, v in p.items()}
                   for p in points]

@@ -232,9 +232,12 @@ def test_save_replaces_same_key_and_keeps_others(tmp_path):
 def test_shipped_calibration_matches_default_settings():
     c = cal.load_matching(_defaults())
     assert c is not None, "chairqm/data/calibration.json has no calibration for tblite / GFN2-xTB / gas / qrrho / 1.0"
-    # a fit made by today's settings_key carries refine: None (unrefined); older entries lack the key
+    # a fit made by today's settings_key carries refine: None (unrefined); older entries lack the key;
+    # the optimiser its minima came from is stored beside the key, and is today's default
+    from chairqm.optimize import DEFAULT_OPTIMIZER
     assert {k: v for k, v in c.settings.items() if k != "refine"} == {
-        "engine": "tblite", "method": "GFN2-xTB", "solvent": None, "thermo_model": "qrrho", "frequency_scale": 1.0}
+        "engine": "tblite", "method": "GFN2-xTB", "solvent": None, "thermo_model": "qrrho", "frequency_scale": 1.0,
+        "optimizer": DEFAULT_OPTIMIZER}
     assert c.settings.get("refine") is None
     assert c.n >= 20 and c.temperature_k == pytest.approx(298.15)
     # the stored statistics are those of the stored points (recomputed here from the table)
@@ -313,7 +316,8 @@ def test_calibrate_run_on_a_small_finished_run(tmp_path):
     used = ["ref-exp-methyl", "ref-exp-chloro", "ref-exp-phenyl", "ref-exp-methoxy"]
     ref = cal.fit([mols[m][1] for m in used], [a_value(t.loc[m, "fragment"]) for m in used])
     assert c.slope == pytest.approx(ref.slope) and c.residual_sd_kcal == pytest.approx(ref.residual_sd_kcal)
-    assert c.settings == cal.settings_key({})
+    from chairqm.optimize import DEFAULT_OPTIMIZER
+    assert c.settings == {**cal.settings_key({}), "optimizer": DEFAULT_OPTIMIZER}   # the optimiser beside the key
 
 
 def test_calibrate_run_needs_a_finished_run(tmp_path):

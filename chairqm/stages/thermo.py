@@ -1,8 +1,9 @@
 """Thermo stage: minima.json + minima/*.xyz -> thermo.csv, thermo.json and thermo/CONFORMER.{xyz,vib.json}.
 
 Hessians only where they decide the answer (chairqm.frequency_window, setting
-thermo.frequency_window_kcal): the minima within the window of the lowest electronic energy and the
-lowest of each chair family. Every other minimum is kept with its energy, marked
+thermo.frequency_window_kcal): the lowest minimum and the lowest of each chair family, then the minima
+within the window of the lowest electronic energy, one at a time (the automatic window narrows as each
+Hessian adds a known free energy). Every other minimum is kept with its energy, marked
 ``frequency_checked = false``, and its free energy borrows the thermal correction G − E of the
 frequency-checked conformer named in ``thermal_correction_from`` (with its own symmetry number).
 
@@ -201,8 +202,8 @@ def _executor(threads, jobs):
 
 
 def _phase_window(th, temps, recs, work, minima, es, first):
-    """The automatic window once the first Hessians are known: chairqm.frequency_window.auto_window_kcal
-    with Z_S/w_0 from the frequency-checked conformers of the first phase (1 when the conformer of lowest
+    """The automatic window with the Hessians known so far: chairqm.frequency_window.auto_window_kcal
+    with Z_S/w_0 from the frequency-checked conformers among `first` (1 when the conformer of lowest
     electronic energy has no usable Hessian)."""
     from .. import frequency_window as cq_fw
     confs = minima["conformers"]
@@ -269,12 +270,20 @@ def run(cfg, plan, name, threads=1):
 
     try:
         # first the Hessians every answer needs (and, with a fixed window, all of them)
-        first = set(cq_fw.select(minima["conformers"], 0.0 if auto else cq_fw.window_kcal(setting, temps)))
-        compute(first)
-        window = (_phase_window(th, temps, recs, work, minima, es, first) if auto
-                  else cq_fw.window_kcal(setting, temps))
-        selected = first | set(cq_fw.select(minima["conformers"], window))
-        compute(selected - first)
+        selected = set(cq_fw.select(minima["conformers"], 0.0 if auto else cq_fw.window_kcal(setting, temps)))
+        compute(selected)
+        window = cq_fw.window_kcal(setting, temps)
+        by_energy = sorted(minima["conformers"], key=lambda c: (c["energy_hartree"], c["conformer"]))
+        while auto:
+            # then, lowest electronic energy first, every conformer inside the automatic window, which is
+            # recomputed after each Hessian: one more known free energy can only narrow it
+            window = _phase_window(th, temps, recs, work, minima, es, selected)
+            inside = set(cq_fw.select(minima["conformers"], window)) - selected
+            todo = [c["conformer"] for c in by_energy if c["conformer"] in inside]
+            if not todo:
+                break
+            compute({todo[0]})
+            selected.add(todo[0])
     finally:
         if pool["ex"] is not None:
             pool["ex"].shutdown()
