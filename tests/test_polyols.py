@@ -94,3 +94,22 @@ def test_beta_d_glucose_in_water_is_the_all_equatorial_4c1_chair(tmp_path):
     assert row["preferred_family"] == "chair " + ";".join(f"s{i}=equatorial" for i in range(1, 6))
     assert float(row["chair_dg_kcal"]) > 1.0
     assert float(row["twist_boat_population"]) < 0.5
+
+
+ME_ALPHA_GLC = "CO[C@H]1O[C@H](CO)[C@@H](O)[C@H](O)[C@H]1O"     # methyl alpha-D-glucopyranoside
+
+
+@pytest.mark.slow
+def test_methyl_alpha_d_glucoside_in_water_is_the_4c1_chair_with_its_methoxy_axial(tmp_path):
+    # methyl alpha-D-glucopyranoside: the 4C1 chair with the anomeric methoxy axial and every other group
+    # equatorial (the anomeric effect; textbook, from memory); s1 is the methoxy (intake numbers the groups
+    # from the SMILES), so the preferred family is 's1=axial', the rest equatorial, the 1C4 chair above it
+    from _runs import run_summary
+    row = run_summary({"molecules": [{"name": "me-alpha-glc", "smiles": ME_ALPHA_GLC}],
+                       "settings": {"solvent": {"model": "alpb", "name": "water"},
+                                    "analysis": {"reference_groups": False}}},
+                      tmp_path / "glc", timeout=2400).iloc[0]
+    assert row["status"] == "ok", row["reason"]
+    assert row["preferred_family"] == "chair s1=axial;" + ";".join(f"s{i}=equatorial" for i in range(2, 6))
+    assert float(row["chair_dg_kcal"]) > 1.0
+    assert float(row["twist_boat_population"]) < 0.5
