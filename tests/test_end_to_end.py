@@ -129,24 +129,32 @@ def test_every_conformer_is_proven_minimum_or_excluded(run):
         assert (unchecked.thermal_correction_from != "").all()
 
 
+def _every_hessian_and(tmp_path, name, smiles, label, window):
+    """One molecule run with a Hessian for every minimum ('all'), then a copy rerun with `window` (the same
+    minima; its Hessians come from the copied cache): ({'all': folder, label: folder}, and both
+    conformers.csv tables indexed by conformer, in the same order)."""
+    import shutil
+    outs = {}
+    for lab, win in (("all", "all"), (label, window)):
+        out = tmp_path / lab
+        if outs:
+            shutil.copytree(outs["all"], out)
+        proc = run_config({"molecules": [{"name": name, "smiles": smiles}],
+                           "settings": {"thermo": {"frequency_window_kcal": win}}}, out, timeout=None)
+        assert proc.returncode == 0, proc.stderr[-3000:]
+        outs[lab] = out
+    full, other = (pd.read_csv(outs[lab] / name / "conformers.csv", keep_default_na=False).set_index("conformer")
+                   for lab in ("all", label))
+    assert list(full.index) == list(other.index)
+    return outs, full, other
+
+
 def test_hessians_only_where_they_decide_the_answer(tmp_path):
     """Cyanocyclohexane with Hessians for the two chairs only (window 0) against every minimum ('all'):
     the twist-boats stay listed, marked and with a borrowed thermal correction; no population above 1 %
     moves by more than 0.5 percentage points and the A-value by no more than 0.05 kcal/mol (issue 17's
     acceptance bounds)."""
-    import shutil
-    outs = {}
-    for label, window in (("all", "all"), ("chairs", 0)):
-        out = tmp_path / label
-        if outs:
-            shutil.copytree(outs["all"], out)       # the same minima; Hessians come from the cache
-        proc = run_config({"molecules": [{"name": "cyano", "smiles": "N#CC1CCCCC1"}],
-                           "settings": {"thermo": {"frequency_window_kcal": window}}}, out, timeout=None)
-        assert proc.returncode == 0, proc.stderr[-3000:]
-        outs[label] = out
-    full = pd.read_csv(outs["all"] / "cyano" / "conformers.csv", keep_default_na=False).set_index("conformer")
-    part = pd.read_csv(outs["chairs"] / "cyano" / "conformers.csv", keep_default_na=False).set_index("conformer")
-    assert list(full.index) == list(part.index)
+    outs, full, part = _every_hessian_and(tmp_path, "cyano", "N#CC1CCCCC1", "chairs", 0)
     assert (full.frequency_checked.astype(str) == "True").all()
     chairs = part.ring_form == "chair"
     assert (part[chairs].frequency_checked.astype(str) == "True").all()
@@ -167,19 +175,7 @@ def test_the_growing_window_skips_only_what_a_full_frequency_run_puts_below_the_
     minimum: fewer Hessians, every skipped conformer below the 0.1 % floor in the full run, no population
     above 1 % moved by more than 0.5 percentage points, the A-value by no more than 0.05 kcal/mol (issue
     17's acceptance bounds)."""
-    import shutil
-    outs = {}
-    for label, window in (("all", "all"), ("auto", "auto")):
-        out = tmp_path / label
-        if outs:
-            shutil.copytree(outs["all"], out)       # the same minima; Hessians come from the cache
-        proc = run_config({"molecules": [{"name": "ethyl", "smiles": "CCC1CCCCC1"}],
-                           "settings": {"thermo": {"frequency_window_kcal": window}}}, out, timeout=None)
-        assert proc.returncode == 0, proc.stderr[-3000:]
-        outs[label] = out
-    full = pd.read_csv(outs["all"] / "ethyl" / "conformers.csv", keep_default_na=False).set_index("conformer")
-    auto = pd.read_csv(outs["auto"] / "ethyl" / "conformers.csv", keep_default_na=False).set_index("conformer")
-    assert list(full.index) == list(auto.index)
+    outs, full, auto = _every_hessian_and(tmp_path, "ethyl", "CCC1CCCCC1", "auto", "auto")
     skipped = auto.frequency_checked.astype(str) == "False"
     thermo = json.loads((outs["auto"] / "ethyl" / "thermo.json").read_text())
     assert skipped.any() and thermo["hessians"] == int((~skipped).sum()) < thermo["minima"]

@@ -85,15 +85,7 @@ def test_beta_d_glucose_in_water_is_the_all_equatorial_4c1_chair(tmp_path):
     # beta-D-glucopyranose in water: the 4C1 chair with every substituent equatorial dominates (textbook);
     # checked as: that chair is the preferred family, the ring-flipped 1C4 chair lies above it, and the
     # non-chair forms hold less than half of the population (so the 4C1 chair holds most of it)
-    from _runs import run_summary
-    row = run_summary({"molecules": [{"name": "beta-glc", "smiles": BETA_GLC}],
-                       "settings": {"solvent": {"model": "alpb", "name": "water"},
-                                    "analysis": {"reference_groups": False}}},
-                      tmp_path / "glc", timeout=2400).iloc[0]
-    assert row["status"] == "ok", row["reason"]
-    assert row["preferred_family"] == "chair " + ";".join(f"s{i}=equatorial" for i in range(1, 6))
-    assert float(row["chair_dg_kcal"]) > 1.0
-    assert float(row["twist_boat_population"]) < 0.5
+    _4c1_chair_in_water(tmp_path, BETA_GLC, ["equatorial"] * 5)
 
 
 ME_ALPHA_GLC = "CO[C@H]1O[C@H](CO)[C@@H](O)[C@H](O)[C@H]1O"     # methyl alpha-D-glucopyranoside
@@ -104,12 +96,19 @@ def test_methyl_alpha_d_glucoside_in_water_is_the_4c1_chair_with_its_methoxy_axi
     # methyl alpha-D-glucopyranoside: the 4C1 chair with the anomeric methoxy axial and every other group
     # equatorial (the anomeric effect; textbook, from memory); s1 is the methoxy (intake numbers the groups
     # from the SMILES), so the preferred family is 's1=axial', the rest equatorial, the 1C4 chair above it
+    _4c1_chair_in_water(tmp_path, ME_ALPHA_GLC, ["axial"] + ["equatorial"] * 4)
+
+
+def _4c1_chair_in_water(tmp_path, smiles, sides):
+    """One sugar in ALPB water: the chair with the groups s1, s2, ... on `sides` is the preferred family,
+    the ring-flipped chair lies more than 1 kcal/mol above it, and the non-chair forms hold less than half
+    of the population (so that chair holds most of it)."""
     from _runs import run_summary
-    row = run_summary({"molecules": [{"name": "me-alpha-glc", "smiles": ME_ALPHA_GLC}],
+    row = run_summary({"molecules": [{"name": "sugar", "smiles": smiles}],
                        "settings": {"solvent": {"model": "alpb", "name": "water"},
                                     "analysis": {"reference_groups": False}}},
                       tmp_path / "glc", timeout=2400).iloc[0]
     assert row["status"] == "ok", row["reason"]
-    assert row["preferred_family"] == "chair s1=axial;" + ";".join(f"s{i}=equatorial" for i in range(2, 6))
+    assert row["preferred_family"] == "chair " + ";".join(f"s{i}={side}" for i, side in enumerate(sides, 1))
     assert float(row["chair_dg_kcal"]) > 1.0
     assert float(row["twist_boat_population"]) < 0.5
