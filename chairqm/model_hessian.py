@@ -30,9 +30,15 @@ R_REF = np.array([[1.35, 2.10, 2.53], [2.10, 2.87, 3.40], [2.53, 3.40, 3.40]])
 K_STRETCH, K_BEND, K_TORSION = 0.45, 0.15, 0.005
 
 #: Terms whose weight (ρ product) falls below this are left out; bends and torsions through an angle
-#: above LINEAR_DEG are left out (their B vectors are ill-defined near 180°).
+#: above LINEAR_DEG or below 180° − LINEAR_DEG are left out (their B vectors are ill-defined near 180° and
+#: 0°: the trans ligands of an octahedral centre, or a neighbour seen through the atom between them).
 CUTOFF = 1e-4
 LINEAR_DEG = 175.0
+
+
+def _bendable(angles_deg):
+    """True where an angle is far enough from 0° and 180° for its derivative to exist."""
+    return (angles_deg <= LINEAR_DEG) & (angles_deg >= 180.0 - LINEAR_DEG)
 
 #: eV/Å² along translations and rotations (ASE's BFGS default diagonal, 70 eV/Å²).
 EXTERNAL = 70.0
@@ -79,10 +85,10 @@ def model_hessian(atoms: Atoms) -> np.ndarray:
     if bends:
         t = np.array(bends)
         v0, v1 = pos[t[:, 0]] - pos[t[:, 1]], pos[t[:, 2]] - pos[t[:, 1]]
-        angles = get_angles(v0, v1)
-        derivs = get_angles_derivatives(v0, v1) * deg_a_to_rad_bohr
-        for (i, j, k), ang, d in zip(bends, angles, derivs):
-            if ang <= LINEAR_DEG:
+        keep = _bendable(get_angles(v0, v1))         # ASE raises for the derivative of a 0° or 180° angle
+        if keep.any():
+            derivs = get_angles_derivatives(v0[keep], v1[keep]) * deg_a_to_rad_bohr
+            for (i, j, k), d in zip([b for b, ok in zip(bends, keep) if ok], derivs):
                 _add(h, (i, j, k), d, K_BEND * rho[i, j] * rho[j, k])
     # torsions i-j-k-l about j-k
     tors = [(i, j, k, m) for j in range(n) for k in nb[j] if k > j for i in nb[j] if i != k for m in nb[k]
@@ -90,10 +96,10 @@ def model_hessian(atoms: Atoms) -> np.ndarray:
     if tors:
         q = np.array(tors)
         v0, v1, v2 = pos[q[:, 1]] - pos[q[:, 0]], pos[q[:, 2]] - pos[q[:, 1]], pos[q[:, 3]] - pos[q[:, 2]]
-        a1, a2 = get_angles(-v0, v1), get_angles(-v1, v2)
-        derivs = get_dihedrals_derivatives(v0, v1, v2) * deg_a_to_rad_bohr
-        for (i, j, k, m), x1, x2, d in zip(tors, a1, a2, derivs):
-            if x1 <= LINEAR_DEG and x2 <= LINEAR_DEG:
+        keep = _bendable(get_angles(-v0, v1)) & _bendable(get_angles(-v1, v2))
+        if keep.any():
+            derivs = get_dihedrals_derivatives(v0[keep], v1[keep], v2[keep]) * deg_a_to_rad_bohr
+            for (i, j, k, m), d in zip([t for t, ok in zip(tors, keep) if ok], derivs):
                 _add(h, (i, j, k, m), d, K_TORSION * rho[i, j] * rho[j, k] * rho[k, m])
     h *= _TO_EV_A2
     ext = external_basis(Atoms(z, positions=pos, masses=np.ones(n)))

@@ -60,3 +60,15 @@ def test_bend_constant_of_water_matches_the_wilson_b_vector_by_hand():
         * HARTREE_EV / BOHR_A ** 2
     # left out of the hand sum: the two bends centred on an H atom (weight ρ_OH·ρ_HH ≈ 2.6e-3, under 0.1 %)
     assert curv == pytest.approx(expected, rel=1e-3)
+
+
+def test_an_octahedral_centre_with_180_degree_angles_gets_a_model_hessian():
+    # SF6 (ideal octahedron, S-F 1.56 A, from memory): its trans F-S-F angles are 180 degrees, whose bend
+    # derivative does not exist; they are left out (LINEAR_DEG) instead of stopping the optimiser, which
+    # is what stopped bfgs-model on the SF5 group (ASE: "Singularity for derivative of a planar angle")
+    from ase import Atoms
+    d = 1.56
+    pos = [[0, 0, 0]] + [[s * d * (i == k) for k in range(3)] for i in range(3) for s in (1, -1)]
+    h = model_hessian(Atoms("SF6", positions=pos))
+    assert h.shape == (21, 21) and np.isfinite(h).all() and np.allclose(h, h.T)
+    assert np.linalg.eigvalsh(h).min() > 0
