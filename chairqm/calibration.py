@@ -180,8 +180,8 @@ def _optimizer_of(settings: dict | None) -> str:
     """The optimiser a run's minima came from ('auto' resolved), stored beside a calibration's key for the
     record: it is not part of the key (chairqm.optimize.DEFAULT_OPTIMIZER says which optimiser the
     shipped calibrations were fitted with)."""
-    from .optimize import _canonical_optimizer
-    return _canonical_optimizer(str(((settings or {}).get("optimize") or {}).get("optimizer", "auto")))
+    from .optimize import resolve_optimizer
+    return resolve_optimizer(str(((settings or {}).get("optimize") or {}).get("optimizer", "auto")))
 
 
 def _norm_refine(block, solvent=None):

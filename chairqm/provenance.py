@@ -89,10 +89,10 @@ def _optimize_record_settings(block):
     budget, which decides which seeds are optimised, not what one optimisation gives."""
     if block is None:
         return None
-    from .optimize import _canonical_optimizer
+    from .optimize import resolve_optimizer
     b = {k: v for k, v in dict(block).items() if k != "max_gradient_calls"}
     if "optimizer" in b:
-        b["optimizer"] = _canonical_optimizer(b["optimizer"])
+        b["optimizer"] = resolve_optimizer(b["optimizer"])
     return b
 
 

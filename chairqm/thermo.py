@@ -49,6 +49,7 @@ BAV_KG_M2 = 1.0e-44
 #: Imaginary modes with |ν| below this (cm⁻¹) are residual noise of a proven minimum (see
 #: chairqm.vibrations.DEFAULT_IMAGINARY_THRESHOLD, the same number) and are counted as real with |ν|.
 IMAGINARY_THRESHOLD_CM1 = 15.0
+#: The same number is the default noise floor of thermochemistry(): softer modes count at 15 cm⁻¹.
 
 
 
@@ -87,6 +88,8 @@ class ThermoTerms:
     n_modes: int = 0                   # vibrations used
     n_dropped: int = 0                 # imaginary modes left out
     n_inverted: int = 0                # imaginary modes counted as real with |ν|
+    n_floored: int = 0                 # modes softer than the noise floor, counted at the floor
+    noise_floor_cm1: float = 0.0
     lowest_frequency_cm1: float = math.nan   # of the input (unscaled, imaginary negative)
     omega0_cm1: float = OMEGA0_CM1
     alpha: float = ALPHA
@@ -173,7 +176,7 @@ def thermochemistry(freqs_cm1, atoms: Atoms, temperature: float, symmetry_number
                     model: str = "qrrho", scale: float = 1.0, standard_state: str = "gas",
                     imaginary: str = "invert-small", imaginary_threshold_cm1: float = IMAGINARY_THRESHOLD_CM1,
                     omega0: float = OMEGA0_CM1, alpha: float = ALPHA, bav: float = BAV_KG_M2,
-                    pressure_pa: float = ATM_PA) -> ThermoTerms:
+                    pressure_pa: float = ATM_PA, noise_floor_cm1: float | None = None) -> ThermoTerms:
     """Ideal-gas thermal terms (hartree) of a conformer with vibrational wavenumbers `freqs_cm1`.
 
     freqs_cm1: the 3N−6 (3N−5 linear) vibrations, imaginary ones negative (as
@@ -209,7 +212,14 @@ def thermochemistry(freqs_cm1, atoms: Atoms, temperature: float, symmetry_number
     they are flat torsions whose curvature sign is within numerical noise; dropping one would remove a
     whole mode's entropy (≈ 2.6 k, 1.5 kcal/mol of −TS at 10 cm⁻¹ as a free rotor) and bias the comparison
     with conformers whose noise happened to be positive, while under quasi-RRHO a mode that soft is
-    already ≈ a free rotor, so its exact |ν| hardly matters.
+    already ≈ a free rotor.
+
+    Noise floor (`noise_floor_cm1`, default: `imaginary_threshold_cm1`): every kept mode with |ν| below it
+    is counted at the floor (before `scale`).  A mode that soft is below what the finite-difference Hessian
+    resolves (its sign is noise, so is its size), and the free-rotor entropy still grows as ½ k ln(1/ν)
+    there: without the floor, 1.0 against 9.2 cm⁻¹ of noise in two otherwise alike conformers moves G by
+    ≈ ½RT ln 9.2, 0.65 kcal/mol at 298 K.  Raising soft modes to a common cut-off is common practice; it
+    errs toward less entropy for a mode that is truly that soft.  0 turns it off.
     """
     if model not in MODELS:
         raise ChairqmError(f"unknown thermochemistry model {model!r}: choose one of {', '.join(MODELS)}")
@@ -254,7 +264,12 @@ def thermochemistry(freqs_cm1, atoms: Atoms, temperature: float, symmetry_number
         keep = ~big
     n_dropped = int(np.sum(~keep))
     n_inverted = int(np.sum(imag & keep))
-    nu = np.abs(freqs[keep]) * float(scale)
+    floor = float(imaginary_threshold_cm1 if noise_floor_cm1 is None else noise_floor_cm1)
+    if floor < 0:
+        raise ChairqmError(f"the noise floor must be 0 (off) or positive, got {floor} cm-1")
+    raw = np.abs(freqs[keep])
+    floored = raw < floor
+    nu = np.where(floored, floor, raw) * float(scale)
     if np.any(nu < 1e-2):
         raise ChairqmError("a vibrational frequency is zero (< 0.01 cm-1): the list probably still contains a "
                            "translation or rotation; pass the 3N-6 vibrations only")
@@ -302,6 +317,7 @@ def thermochemistry(freqs_cm1, atoms: Atoms, temperature: float, symmetry_number
                        h_trans=h_trans, h_rot=h_rot, h_vib=h_vib, h_corr=h_corr, s_trans=s_trans, s_rot=s_rot,
                        s_vib=s_vib, s_elec=s_elec, s_total=s_total, g_corr=h_corr - temperature * s_total,
                        g_standard_state=g_std, pressure_pa=float(pressure_pa), n_modes=int(len(nu)),
-                       n_dropped=n_dropped, n_inverted=n_inverted,
+                       n_dropped=n_dropped, n_inverted=n_inverted, n_floored=int(np.sum(floored)),
+                       noise_floor_cm1=floor,
                        lowest_frequency_cm1=float(freqs.min()) if len(freqs) else math.nan,
                        omega0_cm1=float(omega0), alpha=float(alpha), bav_kg_m2=float(bav))

@@ -21,7 +21,8 @@ SCRIPTS = {
     "avalue.py": [pytest.mark.slow],
 }
 # scripts that rebuild or report data rather than measure (no --quick): tested below and in test_avalues.py
-DATA_SCRIPTS = {"build_avalue_table.py", "avalue_table_diff.py", "calibration_report.py", "refine_auto.py"}
+DATA_SCRIPTS = {"build_avalue_table.py", "avalue_table_diff.py", "calibration_report.py", "refine_auto.py",
+                "one_sided_hessian.py"}
 # a table as benchmarks/_common.table prints it: a header line, then a rule of dash runs separated by two spaces
 RULE = re.compile(r"^-+(  -+)+$", re.M)
 
@@ -67,7 +68,9 @@ def test_avalue_table_diff_reports_changed_added_and_dropped_groups(tmp_path):
 
 def test_calibration_report_reproduces_the_stored_statistics():
     from chairqm import calibration as cal
-    c = next(c for c in cal.load_all(cal.packaged_path()) if not (c.settings or {}).get("refine"))
+    # the report's default: the gas-phase calibration without refinement (whatever its place in the file)
+    c = next(c for c in cal.load_all(cal.packaged_path())
+             if not (c.settings or {}).get("refine") and not (c.settings or {}).get("solvent"))
     proc = subprocess.run([sys.executable, str(BENCH / "calibration_report.py")], capture_output=True, text=True,
                           timeout=300, env=dict(os.environ, OMP_NUM_THREADS="1"))
     assert proc.returncode == 0, proc.stderr[-2000:]
@@ -77,3 +80,32 @@ def test_calibration_report_reproduces_the_stored_statistics():
     assert f"## Statistics (n = {c.n})" in out
     assert out.count("(outside)") == int(re.search(r"coverage of the 95 % intervals \| (\d+) of (\d+)", out)
                                           .group(2)) - int(re.search(r"coverage of the 95 % intervals \| (\d+) of", out).group(1))
+
+
+@pytest.mark.slow
+def test_one_sided_hessian_rebuilds_the_runs_own_free_energies(tmp_path):
+    """benchmarks/one_sided_hessian.py rebuilds each central Hessian from the run's cached displacements:
+    its central G − E must be the run's published one (thermo.csv) for every frequency-checked conformer,
+    and the forward one must differ from it (a different finite difference) but stay close for a rigid
+    group's chairs (within 0.5 kcal/mol: common practice for forward differences at a 0.005 Å step)."""
+    import pandas as pd
+
+    from _runs import run_summary
+    from chairqm.units import KCAL_PER_HARTREE
+    out = tmp_path / "run"
+    run_summary({"project": "one-sided", "molecules": [{"name": "mch", "smiles": "CC1CCCCC1"}],
+                 "settings": {"temperatures_k": [298.15]}}, out)
+    proc = subprocess.run([sys.executable, str(BENCH / "one_sided_hessian.py"), str(out)], capture_output=True,
+                          text=True, timeout=600, env=dict(os.environ, OMP_NUM_THREADS="1"))
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    rows = [line.split("|")[1:-1] for line in proc.stdout.splitlines() if line.startswith("| mch |")]
+    thermo = pd.read_csv(out / "mch" / "thermo.csv")
+    checked = thermo[(thermo["frequency_checked"].astype(str).str.lower() == "true") & thermo["g_corr_hartree"].notna()]
+    assert 2 <= len(rows) <= len(checked)          # a conformer that needed mode following is left out
+    published = {r.conformer: r.g_corr_hartree * KCAL_PER_HARTREE for r in checked.itertuples()}
+    for cells in rows:
+        cid, form, central, delta = cells[1].strip(), cells[2], float(cells[4]), float(cells[6])
+        assert central == pytest.approx(published[cid], abs=1e-3), cid
+        assert delta != 0.0
+        if "chair" in form:
+            assert abs(delta) < 0.5, (cid, delta)

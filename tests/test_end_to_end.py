@@ -48,11 +48,17 @@ def test_methylcyclohexane_a_value(run):
 
 def test_cis_tbu_methyl_locks_tbu_equatorial(run):
     # cis-1-tert-butyl-4-methylcyclohexane: ~99.9 % tBu-equatorial at room temperature (common practice;
-    # textbook A-values 4.9 and 1.7 kcal/mol give ≈ 99.5 %)
+    # textbook A-values 4.9 and 1.7 kcal/mol give ≈ 99.5 %). Both figures weigh the two chairs against
+    # each other, so the check does too: the tBu-equatorial chair against the tBu-axial one. The
+    # twist-boats (tBu pseudo-equatorial, about 1 % here, 2.9 kcal/mol up) are not in that estimate; the
+    # tBu-equatorial chair must still be the leading family by far.
     fam = pd.read_csv(run / "cis-tBu-Me" / "families.csv", keep_default_na=False)
     fam = fam[fam.temperature_k == 298.15]
-    tbu_eq = fam[(fam.ring_form == "chair") & fam.orientation.str.contains("s1=equatorial")]
-    assert tbu_eq.population.sum() >= 0.99
+    chairs = fam[fam.ring_form == "chair"]
+    tbu_eq = chairs[chairs.orientation.str.contains("s1=equatorial")].population.sum()
+    tbu_ax = chairs[chairs.orientation.str.contains("s1=axial")].population.sum()
+    assert tbu_eq / (tbu_eq + tbu_ax) >= 0.99
+    assert tbu_eq >= 0.95 and tbu_eq == fam.population.max()
 
 
 def test_trans_14_dimethyl_not_flagged(run):

@@ -93,4 +93,4 @@ def test_no_minimum_at_all_keeps_the_default_window():
     from chairqm import frequency_window as fw
     from chairqm.stages.thermo import _phase_window
     temps = [298.15]
-    assert _phase_window({}, temps, {}, None, {"conformers": []}, {}, set()) == fw.auto_window_kcal(temps)
+    assert _phase_window({}, temps, {}, None, {"conformers": []}, {}, set(), {}) == fw.auto_window_kcal(temps)

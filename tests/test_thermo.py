@@ -271,7 +271,9 @@ def test_qrrho_models_in_thermochemistry():
     atoms = cyclohexane(0.0, 0.0)
     freqs = np.r_[[10.0, 50.0, 100.0], np.linspace(400.0, 3100.0, 3 * len(atoms) - 9)]
     T = 298.15
-    terms = {m: thermochemistry(freqs, atoms, T, 6, model=m) for m in ("rrho", "qrrho", "qrrho-s", "qrrho-h")}
+    # the interpolations themselves: the noise floor (15 cm-1, tested below) is off so the 10 cm-1 mode stays
+    terms = {m: thermochemistry(freqs, atoms, T, 6, model=m, noise_floor_cm1=0.0)
+             for m in ("rrho", "qrrho", "qrrho-s", "qrrho-h")}
     # every mode is damped a little (w(400 cm-1) = 0.996), so the differences are summed over all modes
     ds = float(np.sum(qrrho_entropy(freqs, T) - harmonic_entropy(freqs, T)))
     assert terms["qrrho-s"].s_vib - terms["rrho"].s_vib == pytest.approx(ds, rel=1e-9)
@@ -323,7 +325,8 @@ def test_scale_factor_and_imaginary_treatment():
     scaled = thermochemistry(base, atoms, 298.15, 6, model="rrho", scale=0.97)
     direct = thermochemistry(base * 0.97, atoms, 298.15, 6, model="rrho")
     assert scaled.g_corr == pytest.approx(direct.g_corr, abs=1e-14)
-    # a residual 8i mode counts as an 8 cm-1 mode by default; a 120i mode is left out
+    # a residual 8i mode counts as a real mode by default (raised to the 15 cm-1 noise floor, as an 8 cm-1
+    # mode is); a 120i mode is left out
     with_small = base.copy()
     with_small[0] = -8.0
     as_real = base.copy()
@@ -331,6 +334,7 @@ def test_scale_factor_and_imaginary_treatment():
     t_small = thermochemistry(with_small, atoms, 298.15, 6)
     assert t_small.g_corr == pytest.approx(thermochemistry(as_real, atoms, 298.15, 6).g_corr, abs=1e-14)
     assert (t_small.n_inverted, t_small.n_dropped, t_small.lowest_frequency_cm1) == (1, 0, -8.0)
+    assert t_small.n_floored == 1 and t_small.noise_floor_cm1 == 15.0
     with_big = base.copy()
     with_big[0] = -120.0
     t_big = thermochemistry(with_big, atoms, 298.15, 6)
@@ -345,6 +349,39 @@ def test_scale_factor_and_imaginary_treatment():
         thermochemistry(base, atoms, 298.15, 6, model="harmonic")
     with pytest.raises(ChairqmError, match="temperature"):
         thermochemistry(base, atoms, 0.0, 6)
+
+
+def test_noise_floor_makes_noise_modes_count_alike():
+    """Two conformers alike but for one mode within the Hessian's noise (1.0 and 9.2i cm-1, as measured
+    in two equatorial tert-butylcyclohexane chairs) get the same G; without the floor they differ by the
+    free-rotor entropy's ½RT ln(9.2/1.0) (Grimme 2012 eqs. 5–7: S_R = R[½ + ln √(8π³μ'kT/h²)], μ ∝ 1/ν,
+    μ ≪ B_av here), worked from the published formula in _worked."""
+    atoms = cyclohexane(0.0, 0.0)
+    base = np.linspace(200.0, 3100.0, 48)
+    T = 298.15
+    a, b = base.copy(), base.copy()
+    a[0], b[0] = 1.0, -9.2
+    ta, tb = (thermochemistry(f, atoms, T, 6) for f in (a, b))
+    assert ta.g_corr == pytest.approx(tb.g_corr, abs=1e-14)
+    assert (ta.n_floored, tb.n_floored, tb.n_inverted) == (1, 1, 1)
+    at15 = base.copy()
+    at15[0] = 15.0
+    assert ta.g_corr == pytest.approx(thermochemistry(at15, atoms, T, 6).g_corr, abs=1e-14)
+    # floor off: the old spread, from the worked free-rotor entropies (w(ν) < 1e-5 at these ν)
+    oa, ob = (thermochemistry(f, atoms, T, 6, noise_floor_cm1=0.0) for f in (a, b))
+    expected = T * (_worked(1.0)["s"] - _worked(9.2)["s"])            # J/mol: 0.650 kcal/mol
+    assert (ob.g_corr - oa.g_corr) * J_MOL_PER_HARTREE == pytest.approx(expected, rel=2e-3)
+    # ≈ ½RT ln 9.2 = 0.657 kcal/mol; 1 % less, as μ' = μ B_av/(μ + B_av) is 3 % below μ at 1 cm-1
+    assert expected / 4184.0 == pytest.approx(0.5 * R_GAS * T * math.log(9.2) / 4184.0, rel=2e-2)
+    # a mode above the floor is untouched, and a larger floor is honoured
+    c = base.copy()
+    c[0] = 20.0
+    assert thermochemistry(c, atoms, T, 6).n_floored == 0
+    assert thermochemistry(c, atoms, T, 6).g_corr == pytest.approx(
+        thermochemistry(c, atoms, T, 6, noise_floor_cm1=0.0).g_corr, abs=1e-14)
+    assert thermochemistry(c, atoms, T, 6, noise_floor_cm1=30.0).n_floored == 1
+    with pytest.raises(ChairqmError, match="noise floor"):
+        thermochemistry(c, atoms, T, 6, noise_floor_cm1=-1.0)
 
 
 # ------------------------------------------------------------------------- GFN2-xTB entropies vs NIST

@@ -201,10 +201,11 @@ def _executor(threads, jobs):
     return ProcessPoolExecutor(max_workers=threads - 1, mp_context=worker_context())
 
 
-def _phase_window(th, temps, recs, work, minima, es, first):
+def _phase_window(th, temps, recs, work, minima, es, first, vib):
     """The automatic window with the Hessians known so far: chairqm.frequency_window.auto_window_kcal
     with Z_S/w_0 from the frequency-checked conformers among `first` (1 when the conformer of lowest
-    electronic energy has no usable Hessian)."""
+    electronic energy has no usable Hessian). `vib`: {conformer: (atoms, frequencies)}, filled here with
+    those not yet read, so each Hessian is read and diagonalised once over all passes."""
     from .. import frequency_window as cq_fw
     confs = minima["conformers"]
     if not confs:                       # every seed failed: nothing to weigh, the default window stands
@@ -215,7 +216,9 @@ def _phase_window(th, temps, recs, work, minima, es, first):
     if lowest not in usable:
         return cq_fw.auto_window_kcal(temps)
     deg = {c["conformer"]: c["degeneracy"] for c in confs}
-    vib = {cid: vibrations_of(work / f"{cid}.vib.json") for cid in usable}
+    for cid in usable:
+        if cid not in vib:
+            vib[cid] = vibrations_of(work / f"{cid}.vib.json")
     z = {}
     for t in temps:
         g = {cid: recs[cid]["energy_hartree"] + free_energy_terms(*vib[cid], recs[cid]["symmetry_number"],
@@ -243,6 +246,7 @@ def run(cfg, plan, name, threads=1):
     setting = th["frequency_window_kcal"]
     auto = isinstance(setting, str) and setting.strip().lower() == cq_fw.AUTO
     recs, pool = {}, {"ex": None}
+    vib_cache = {}                      # conformer -> (atoms, frequencies) of its published Hessian
 
     def compute(ids):
         """Hessians of conformers `ids` (records reused by key), displacements shared over the workers."""
@@ -277,7 +281,7 @@ def run(cfg, plan, name, threads=1):
         while auto:
             # then, lowest electronic energy first, every conformer inside the automatic window, which is
             # recomputed after each Hessian: one more known free energy can only narrow it
-            window = _phase_window(th, temps, recs, work, minima, es, selected)
+            window = _phase_window(th, temps, recs, work, minima, es, selected, vib_cache)
             inside = set(cq_fw.select(minima["conformers"], window)) - selected
             todo = [c["conformer"] for c in by_energy if c["conformer"] in inside]
             if not todo:
@@ -295,15 +299,13 @@ def run(cfg, plan, name, threads=1):
                                    {"delta_kcal": (c["energy_hartree"] - e0) * KCAL_PER_HARTREE, "window_kcal": window})
     final = _final_list(p, minima, recs, work, settings)
     by_id = {c["conformer"]: c for c in final}
-    vib_cache = {}
 
     def terms_of(c):
         src = c.get("thermal_correction_from")
         if src is None:
             return {}
         if src not in vib_cache:
-            fileio.write_text(out / f"{src}.vib.json", (work / f"{src}.vib.json").read_text())
-            vib_cache[src] = vibrations_of(out / f"{src}.vib.json")
+            vib_cache[src] = vibrations_of(work / f"{src}.vib.json")
         atoms, freqs = vib_cache[src]
         return {t: free_energy_terms(atoms, freqs, c["symmetry_number"], es["multiplicity"], th, t).to_record()
                 for t in temps}
