@@ -178,10 +178,15 @@ def test_fallback_at_higher_electronic_temperature_recovers(mch):
 
 
 def test_step_limit_gives_not_converged(mch):
-    r = optimize(mch[2]["ax"], gfn2, max_steps=2)
+    # the second optimiser itself is not continued by anything: max_steps is where it stops
+    from chairqm.optimize import SECOND_OPTIMIZER
+    r = optimize(mch[2]["ax"], gfn2, max_steps=2, optimizer=SECOND_OPTIMIZER)
     assert r.status == "not-converged" and not r.converged and r.fmax_final > 0.005
     assert "max_steps" in r.reason and np.isfinite(r.energy_hartree)
-    assert "continued" not in r.fallback and r.steps == 2      # the default optimiser is the second one
+    assert "continued" not in r.fallback and r.steps == 2
+    # the default (bfgs-model) left short is continued by it, and still short after 2 + 2 steps
+    d = optimize(mch[2]["ax"], gfn2, max_steps=2)
+    assert d.status == "not-converged" and "continued with" in d.fallback and d.steps == 4
 
 
 def test_another_optimiser_left_short_is_continued_by_the_second(mch):
