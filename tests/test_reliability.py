@@ -355,6 +355,14 @@ STALE_LOCK = ("after a kill or a signal the same `chairqm run` command refuses t
               "{out}/.snakemake/locks survives the interruption and `chairqm run` does not clear it")
 
 
+def _sigint_as_in_a_terminal():
+    """In the child before exec: SIGINT back to its default. A command run in a terminal gets Ctrl-C; a
+    test suite started in the background inherits SIGINT ignored (POSIX shells ignore it for background
+    jobs), and Python then installs no KeyboardInterrupt handler, so the command under test would not
+    see the SIGINT the signal test sends."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 @contextlib.contextmanager
 def running_until(cmd, out: Path, pattern: str, log: Path, timeout=600, env=None):
     """Start `cmd` in its own process group (its output appended to `log`; environment `env`, by default
@@ -363,7 +371,7 @@ def running_until(cmd, out: Path, pattern: str, log: Path, timeout=600, env=None
     leaving, a group still running is SIGKILLed and the process is reaped."""
     with open(log, "a") as fh:
         p = subprocess.Popen(cmd, stdout=fh, stderr=subprocess.STDOUT, env=env or clean_env(),
-                             start_new_session=True)
+                             start_new_session=True, preexec_fn=_sigint_as_in_a_terminal)
     t0 = time.time()
     try:
         while not glob.glob(str(out / pattern)):
