@@ -10,8 +10,8 @@ Each group's monosubstituted cyclohexane (the configuration chairqm.api.avalues 
 - ``window``: the previous optimiser, Hessians only within the automatic window (and each chair family's
   lowest conformer);
 - ``model-hessian``: the window and the model-Hessian BFGS (``optimize.optimizer: bfgs-model``).
-- ``default``: the schema's defaults (the window; the optimiser stays precon-lbfgs until the shipped
-  calibration is refitted with bfgs-model, see chairqm.optimize.DEFAULT_OPTIMIZER).
+- ``default``: the schema's defaults (the window and, since 2026-12-05, bfgs-model: the same as
+  ``model-hessian``; see chairqm.optimize.DEFAULT_OPTIMIZER).
 
 Columns: wall s (the whole command), engine s (inside GFN2-xTB, minima + thermo stages, summed over
 worker processes), gradient calls (minima + thermo), of which Hessian gradients, wall/engine, the A-value
