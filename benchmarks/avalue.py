@@ -5,25 +5,30 @@ with the physical floor (the gradients of two chair optimisations and two Hessia
 Each group's monosubstituted cyclohexane (the configuration chairqm.api.avalues writes) runs through
 `chairqm run CONFIG --out FRESH --cores N` once per variant, in a fresh folder (nothing cached):
 
-- ``before``: every minimum gets its Hessian (``thermo.frequency_window_kcal: all``) and the previous
-  default optimiser (``optimize.optimizer: precon-lbfgs``): the path before issue 17;
-- ``window``: the previous optimiser, Hessians only within the automatic window (and each chair family's
-  lowest conformer);
-- ``model-hessian``: the window and the model-Hessian BFGS (``optimize.optimizer: bfgs-model``).
-- ``default``: the schema's defaults (the window and, since 2026-12-05, bfgs-model: the same as
-  ``model-hessian``; see chairqm.optimize.DEFAULT_OPTIMIZER).
+- ``before``: every minimum gets its Hessian (``thermo.frequency_window_kcal: all``) along every Cartesian
+  axis (``thermo.hessian_directions: cartesian``, 6N gradients) and the previous default optimiser
+  (``optimize.optimizer: precon-lbfgs``): the path before issue 17;
+- ``window``: the previous optimiser and Cartesian Hessians, only within the automatic window (and each
+  chair family's lowest conformer);
+- ``model-hessian``: the window, Cartesian Hessians and the model-Hessian BFGS (``optimize.optimizer:
+  bfgs-model``);
+- ``cartesian``: the defaults but Cartesian Hessians (the default before the internal directions);
+- ``default``: the schema's defaults (the window, bfgs-model, Hessians along the 3N − 6 internal
+  directions, 2(3N − 6) gradients).
 
 Columns: wall s (the whole command), engine s (inside GFN2-xTB, minima + thermo stages, summed over
 worker processes), gradient calls (minima + thermo), of which Hessian gradients, wall/engine, the A-value
 (kcal/mol, 298.15 K) and floor = the optimisation gradients of the two chairs' seeds (minima.csv) + 2 × 6N
-(N atoms), with calls/floor.
+(N atoms; two Cartesian Hessians, as issue 17 defines it), with calls/floor; floor_int and
+calls/floor_int the same with two Hessians along the internal directions, 2 × 2(3N − 6).
 
 Full run (≈ 10 min on 2 cores):  nice -n 10 python benchmarks/avalue.py --json results/bench/avalue.json
 CI subset (one small group, default variant only):  python benchmarks/avalue.py --quick
 
 Reference-set comparison (--reference CONFIG --out DIR): the whole configuration with every Hessian
-(DIR/all), then a copy rerun with the default window (DIR/window: optimisations and Hessian displacements
-come from the copied caches, so both variants rest on the same minima); per molecule the largest change
+along Cartesian axes (DIR/all; --all-directions internal for the default directions), then a copy rerun
+with the default window and directions (DIR/window: optimisations, and Hessian displacements made along
+the same directions, come from the copied caches, so both variants rest on the same minima); per molecule the largest change
 of a conformer or family population above 1 %, the change of the A-value (every temperature), the
 Hessians computed, and the gradient calls a fresh run of each variant makes (minima + the Hessians and
 mode-following re-optimisations of the frequency-checked conformers, read from the per-conformer records),
@@ -49,9 +54,12 @@ import _common as C
 
 GROUPS = ["[*]C#N", "[*]OC(F)(F)F", "[*]N(C)C", "[*]C1CCC1"]      # the groups of issue 17
 QUICK = ["[*]F"]
-VARIANTS = {"before": {"thermo": {"frequency_window_kcal": "all"}, "optimize": {"optimizer": "precon-lbfgs"}},
-            "window": {"optimize": {"optimizer": "precon-lbfgs"}},
-            "model-hessian": {"optimize": {"optimizer": "bfgs-model"}},
+VARIANTS = {"before": {"thermo": {"frequency_window_kcal": "all", "hessian_directions": "cartesian"},
+                       "optimize": {"optimizer": "precon-lbfgs"}},
+            "window": {"optimize": {"optimizer": "precon-lbfgs"}, "thermo": {"hessian_directions": "cartesian"}},
+            "model-hessian": {"optimize": {"optimizer": "bfgs-model"}, "thermo": {"hessian_directions": "cartesian"}},
+            # the defaults but the Hessian along every Cartesian axis (6N gradients, before 2026-12-05)
+            "cartesian": {"thermo": {"hessian_directions": "cartesian"}},
             "default": {},
             # every stage job in its own interpreter, as before the warm starter (chairqm.stages.warm)
             "cold": {"_env": {"CHAIRQM_WARM": "0"}}}
@@ -95,7 +103,7 @@ def measure(group: str, variant: dict, cores: int, keep: Path | None = None) -> 
         calls = minima["gradient_calls"] + thermo["gradient_calls"]
         summ = pd.read_csv(out / "summary.csv", keep_default_na=False)
         a = summ.loc[summ.temperature_k == 298.15, "a_value_kcal"]
-        # floor: the two chairs' own optimisations + two Hessians of 6N gradients
+        # floor: the two chairs' own optimisations + two Hessians (6N, and 2(3N - 6) along internal directions)
         mcsv = pd.read_csv(mol / "minima.csv", keep_default_na=False)
         confs = sorted(minima["conformers"], key=lambda c: c["energy_hartree"])
         chairs = {}
@@ -106,12 +114,14 @@ def measure(group: str, variant: dict, cores: int, keep: Path | None = None) -> 
         natoms = int((mol / "minima" / f"{confs[0]['conformer']}.xyz").read_text().split()[0])
         opt_calls = int(mcsv[mcsv.seed.isin(seeds)].gradient_calls.astype(int).sum())
         floor = opt_calls + 2 * 6 * natoms
+        floor_int = opt_calls + 2 * 2 * (3 * natoms - 6)
         row.update({"engine_s": engine, "gradient_calls": calls,
                     "hessian_gradients": thermo.get("hessian_gradients"),
                     "hessians": f"{thermo.get('hessians', len(thermo['conformers']))}/{len(thermo['conformers'])}",
                     "wall/engine": wall / engine if engine else float("nan"),
                     "a_value_kcal": float(a.iloc[0]) if len(a) and a.iloc[0] != "" else float("nan"),
-                    "floor": floor, "calls/floor": calls / floor})
+                    "floor": floor, "calls/floor": calls / floor,
+                    "floor_int": floor_int, "calls/floor_int": calls / floor_int})
         return row
 
 
@@ -179,7 +189,7 @@ def _stages_again(cfg_path: Path, folder: Path, molecules, cores: int) -> int:
 
 
 def compare_reference(config: Path, out: Path, cores: int, stages_only: Path | None = None,
-                      rerun: bool = True) -> int:
+                      rerun: bool = True, all_directions: str = "cartesian") -> int:
     import shutil
 
     import pandas as pd
@@ -194,6 +204,7 @@ def compare_reference(config: Path, out: Path, cores: int, stages_only: Path | N
             th.pop("frequency_window_kcal", None)
         else:
             th["frequency_window_kcal"] = window
+            th["hessian_directions"] = all_directions      # the full-frequency reference: 6N by default
         path = out / f"{label}.yaml"
         path.write_text(yaml.safe_dump(cfg, sort_keys=False))
         dest = out / label
@@ -250,7 +261,7 @@ def compare_reference(config: Path, out: Path, cores: int, stages_only: Path | N
         bs.extend(brackets(ma))
     info = C.machine()
     C.print_machine(info)
-    print(f"# {config}: every Hessian (all) against the default window (window), same minima; "
+    print(f"# {config}: every Hessian (all, {all_directions} directions) against the default window (window), same minima; "
           "populations above 1 % in either run; pp = percentage points")
     print(C.table(rows, floatfmt=".3g"))
     ok = [r for r in rows if r.get("status") == "ok"]
@@ -304,7 +315,7 @@ def hessian_split(cores: int, repeats: int = 3) -> int:
             times["split"].append(time.perf_counter() - t0)
             same = same and np.array_equal(a.hessian, b.hessian)
     C.print_machine()
-    print(f"# one Hessian of methylcyclohexane ({6 * len(atoms)} gradients), serial against split over {cores} "
+    print(f"# one Hessian of methylcyclohexane ({a.gradient_calls} gradients), serial against split over {cores} "
           f"processes; median of {repeats}, interleaved; bitwise identical: {same}")
     med = {k: float(np.median(v)) for k, v in times.items()}
     print(C.table([{"mode": k, "median_wall_s": med[k], "runs": " ".join(f"{x:.2f}" for x in v),
@@ -323,6 +334,8 @@ def main(argv=None) -> int:
     ap.add_argument("--out", default="results/bench/window", help="output folder of --reference")
     ap.add_argument("--hessian-split", action="store_true", help="time one Hessian serially and split over --cores")
     ap.add_argument("--compare-only", action="store_true", help="with --reference: compare the folders already in --out")
+    ap.add_argument("--all-directions", default="cartesian", choices=["cartesian", "internal"],
+                    help="with --reference: Hessian directions of the every-Hessian run (default cartesian, 6N)")
     ap.add_argument("--from-run", default=None,
                     help="with --reference: a finished run folder of that configuration; both variants rerun only "
                          "the thermo and ensemble stages on copies of it (no new optimisations)")
@@ -331,7 +344,8 @@ def main(argv=None) -> int:
         return hessian_split(args.cores)
     if args.reference:
         return compare_reference(Path(args.reference), Path(args.out), args.cores,
-                                 Path(args.from_run) if args.from_run else None, rerun=not args.compare_only)
+                                 Path(args.from_run) if args.from_run else None, rerun=not args.compare_only,
+                                 all_directions=args.all_directions)
     groups = args.groups.split(",") if args.groups else (QUICK if args.quick else GROUPS)
     variants = args.variants.split(",") if args.variants else (["default"] if args.quick else list(VARIANTS))
     info = C.machine()
@@ -344,9 +358,9 @@ def main(argv=None) -> int:
             print(f"# {g} {v}: {r['wall_s']:.1f} s", file=sys.stderr, flush=True)
     C.print_machine(info)
     print(f"# one group per run, {args.cores} cores, fresh folders; engine s and gradient calls from "
-          "minima.json + thermo.json; floor = two chair optimisations + two 6N Hessians")
+          "minima.json + thermo.json; floor = two chair optimisations + two 6N Hessians; floor_int with two 2(3N-6) Hessians")
     cols = ["group", "variant", "status", "wall_s", "engine_s", "wall/engine", "gradient_calls",
-            "hessian_gradients", "hessians", "floor", "calls/floor", "a_value_kcal"]
+            "hessian_gradients", "hessians", "floor", "calls/floor", "floor_int", "calls/floor_int", "a_value_kcal"]
     print(C.table(rows, cols, floatfmt=".4g"))
     C.save_json(args.json, {"machine": info, "rows": rows})
     return 0

@@ -3,8 +3,9 @@ displacements a finished run already cached: no new Hessian is computed.
 
     python benchmarks/one_sided_hessian.py RUN_DIR [RUN_DIR ...] [--temperature 298.15]
 
-A central-difference Hessian costs 6N gradients: H[3i+a] = −(F(x + h e) − F(x − h e)) / 2h. The forward
-one costs 3N + 1: H[3i+a] = −(F(x + h e) − F(x)) / h, with the forces F(x) at the minimum (one extra
+A central-difference Hessian costs 2n gradients (n = 3N − 6 internal directions, the default, or 3N
+Cartesian ones): H e = −(F(x + h e) − F(x − h e)) / 2h. The forward one costs n + 1:
+H e = −(F(x + h e) − F(x)) / h, with the forces F(x) at the minimum (one extra
 gradient). Its truncation error is O(h) (half the third derivative times h) where the central one's is
 O(h²), so the forward G − E carries a bias; the question is whether that bias is alike for the
 conformers of one molecule, so that a conformer's G − E could be taken as its forward value plus the
@@ -18,7 +19,7 @@ with the run's engine settings, and prints, in kcal/mol at the temperature:
 - G − E from the central Hessian rebuilt from the cache (the run's own thermo.csv value);
 - delta: G − E from the forward Hessian minus that from the central one;
 - corrected: delta minus the reference conformer's delta (the error of the corrected estimate);
-- the gradients a forward Hessian would save (3N − 1).
+- the gradients a forward Hessian would save (n − 1).
 """
 
 from __future__ import annotations
@@ -38,7 +39,7 @@ sys.path.insert(0, str(ROOT))
 from chairqm import engine as cq_engine  # noqa: E402
 from chairqm import thermo as cq_thermo  # noqa: E402
 from chairqm import vibrations as cq_vib  # noqa: E402
-from chairqm.hessian import _disp_name, _load_forces  # noqa: E402
+from chairqm.hessian import assemble_hessian, cached_displacements  # noqa: E402
 from chairqm.stages.records import read_xyz  # noqa: E402
 from chairqm.units import KCAL_PER_HARTREE  # noqa: E402
 
@@ -52,18 +53,15 @@ def _forces_at(atoms, settings):
 
 
 def _hessians(atoms, folder, key, f0, step):
-    n = len(atoms)
-    central = np.zeros((3 * n, 3 * n))
-    forward = np.zeros((3 * n, 3 * n))
-    for i in range(n):
-        for a in range(3):
-            fp = _load_forces(folder / _disp_name(i, a, +1), key, n)
-            fm = _load_forces(folder / _disp_name(i, a, -1), key, n)
-            if fp is None or fm is None:
-                return None, None
-            central[3 * i + a] = -(fp - fm).ravel() / (2.0 * step)
-            forward[3 * i + a] = -(fp - f0).ravel() / step
-    return 0.5 * (central + central.T), 0.5 * (forward + forward.T)
+    """(central, forward) Hessians from a cache folder, along whichever directions the run used
+    (internal or Cartesian) and the number of directions; (None, None, 0) if a displacement is missing."""
+    got = cached_displacements(atoms, folder, key, step)
+    if got is None:
+        return None, None, 0
+    pairs, u = got
+    central = np.array([-(fp - fm).ravel() / (2.0 * step) for (fp, fm), _ in pairs])
+    forward = np.array([-(fp - f0).ravel() / step for (fp, _fm), _ in pairs])
+    return assemble_hessian(atoms, central, u)[0], assemble_hessian(atoms, forward, u)[0], len(pairs)
 
 
 def _g_corr(hess, atoms, sigma, th, temperature, standard_state):
@@ -96,7 +94,7 @@ def molecule_rows(folder: Path, settings: dict, temperature: float):
                 continue
         atoms = read_xyz(folder / "minima" / f"{cid}.xyz")
         f0 = _forces_at(atoms, settings)
-        central, forward = _hessians(atoms, cache, h["key"], f0, float(h["step_angstrom"]))
+        central, forward, ndir = _hessians(atoms, cache, h["key"], f0, float(h["step_angstrom"]))
         if central is None:
             continue
         gc, nu_c = _g_corr(central, atoms, c["symmetry_number"], th, temperature, state)
@@ -104,7 +102,7 @@ def molecule_rows(folder: Path, settings: dict, temperature: float):
         rows.append({"molecule": folder.name, "conformer": cid, "form": c.get("ring_form"),
                      "orientation": c.get("orientation"), "de_kcal": (c["energy_hartree"] - e0) * KCAL_PER_HARTREE,
                      "g_corr_central": gc, "delta": gf - gc, "lowest_central": nu_c, "lowest_forward": nu_f,
-                     "saved": 3 * len(atoms) - 1, "chair": c.get("ring_form") == "chair"})
+                     "saved": ndir - 1, "chair": c.get("ring_form") == "chair"})
     chairs = [r for r in rows if r["chair"]]
     if not chairs:
         return []

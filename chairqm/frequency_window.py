@@ -1,8 +1,8 @@
 """Which minima get a Hessian, and whose thermal correction the others borrow.
 
-A finite-difference Hessian costs 6N gradients, several times a conformer's optimisation, and only the
-conformers that carry population decide the answer. After optimisation, a conformer gets its Hessian
-(and so its proof of minimum and its own thermal correction) when
+A finite-difference Hessian costs 2(3N − 6) gradients (chairqm.hessian), several times a conformer's
+optimisation, and only the conformers that carry population decide the answer. After optimisation, a
+conformer gets its Hessian (and so its proof of minimum and its own thermal correction) when
 
 - its electronic energy lies within the window of the lowest one (:func:`window_kcal`), or
 - it is the lowest of its chair family (ring form 'chair' with one orientation pattern), so both chairs

@@ -1,6 +1,16 @@
-"""The Cartesian Hessian of a conformer by central finite differences of analytic gradients, 6N gradient
-calls, with a per-conformer cache folder that survives an interrupted run and refuses to mix geometries;
-the displacements can be split over worker processes. Units: positions Å, Hessian eV/Å²."""
+"""The Hessian of a conformer by central finite differences of analytic gradients, with a per-conformer
+cache folder that survives an interrupted run and refuses to mix geometries; the displacements can be
+split over worker processes. Units: positions Å, Hessian eV/Å².
+
+Two sets of displacement directions (`basis`):
+
+- ``"internal"`` (the default): the 3N − 6 (3N − 5 if linear) directions that are not translations or
+  rotations, 2(3N − 6) gradient calls.  The frequencies need only the mass-weighted Hessian projected onto
+  the complement of the translations and rotations (chairqm.vibrations.frequencies), i.e. Bᵀ H B with B
+  the Cartesian images of that complement's basis; each column H b is one central difference along b.
+  The six external directions decide nothing and cost 12 gradient calls per Hessian.
+- ``"cartesian"``: every atom along x, y and z, 6N gradient calls, the full Cartesian Hessian.
+"""
 
 from __future__ import annotations
 
@@ -36,6 +46,11 @@ KEY_DECIMALS = 5
 _CACHE_FORMAT = 1
 _KEY_FILE = "key.json"
 _RUN_FILE = "run.json"
+_DIRECTIONS_FILE = "directions.npz"
+
+#: Displacement directions of :func:`hessian_run`.
+BASES = ("internal", "cartesian")
+DEFAULT_BASIS = "internal"
 
 
 
@@ -54,9 +69,10 @@ def calculator_tag(calc) -> str:
     return f"{cls.__module__}.{cls.__qualname__}:" + json.dumps(params, sort_keys=True, default=repr)
 
 
-def geometry_key(atoms: Atoms, step: float, calc_tag: str = "") -> str:
+def geometry_key(atoms: Atoms, step: float, calc_tag: str = "", basis: str = "cartesian") -> str:
     """SHA-256 of (atomic numbers, positions rounded to KEY_DECIMALS Å, initial charges and magnetic
-    moments, step, calculator tag): the identity of a Hessian's displacement set."""
+    moments, step, calculator tag, and the displacement basis unless Cartesian): the identity of a
+    Hessian's displacement set."""
     pos = np.round(np.asarray(atoms.positions, dtype=float), KEY_DECIMALS) + 0.0  # +0.0 turns -0.0 into 0.0
     payload = {
         "format": _CACHE_FORMAT,
@@ -67,11 +83,71 @@ def geometry_key(atoms: Atoms, step: float, calc_tag: str = "") -> str:
         "step": f"{float(step):.6g}",
         "calc": calc_tag,
     }
+    if basis != "cartesian":
+        payload["basis"] = str(basis)
     return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
 
 
 def _disp_name(atom: int, axis: int, sign: int) -> str:
     return f"disp-{atom:04d}-{'xyz'[axis]}{'+' if sign > 0 else '-'}.npz"
+
+
+def _dir_name(k: int, sign: int) -> str:
+    return f"disp-v{k:04d}{'+' if sign > 0 else '-'}.npz"
+
+
+def external_basis(atoms: Atoms, tol: float = 1e-6) -> np.ndarray:
+    """Orthonormal basis (3N, k) of mass-weighted translations and infinitesimal rotations about the
+    centre of mass, k = 6 (nonlinear), 5 (linear) or 3 (one atom).
+
+    Translations: √m_i e_α; rotations: √m_i (e_α × (r_i − R_com)), the Eckart frame vectors (Eckart,
+    Phys. Rev. 1935, 47, 552; Miller, Handy, Adams, J. Chem. Phys. 1980, 72, 99).  Orthonormalised by SVD;
+    vectors with singular value below `tol` relative to the largest (the missing rotation of a linear
+    molecule) are dropped.
+    """
+    m = np.asarray(atoms.get_masses(), dtype=float)
+    r = np.asarray(atoms.positions, dtype=float)
+    r = r - (m[:, None] * r).sum(0) / m.sum()
+    sq = np.sqrt(m)
+    vecs = []
+    for a in range(3):
+        t = np.zeros_like(r)
+        t[:, a] = 1.0
+        vecs.append((sq[:, None] * t).ravel())
+    for a in range(3):
+        e = np.zeros(3)
+        e[a] = 1.0
+        vecs.append((sq[:, None] * np.cross(e, r)).ravel())
+    d = np.array(vecs).T
+    u, s, _ = np.linalg.svd(d, full_matrices=False)
+    keep = s > tol * s.max()
+    return u[:, keep]
+
+
+def internal_basis(atoms: Atoms) -> np.ndarray:
+    """Orthonormal basis (3N, 3N − k) of the mass-weighted space orthogonal to :func:`external_basis`."""
+    from scipy.linalg import null_space
+    return null_space(external_basis(atoms).T)
+
+
+def _save_directions(folder: Path, key: str, basis_mw: np.ndarray) -> None:
+    import io
+    buf = io.BytesIO()
+    np.savez(buf, basis=basis_mw, key=np.array(key))
+    fileio.write_bytes(folder / _DIRECTIONS_FILE, buf.getvalue(), fsync=False)
+
+
+def _load_directions(folder: Path, key: str, n3: int):
+    try:
+        with np.load(folder / _DIRECTIONS_FILE, allow_pickle=False) as data:
+            if str(data["key"]) != key:
+                return None
+            b = np.array(data["basis"], dtype=float)
+    except (OSError, ValueError, KeyError, EOFError):
+        return None
+    if b.ndim != 2 or b.shape[0] != n3 or not np.all(np.isfinite(b)):
+        return None
+    return b
 
 
 def _atomic_write_npz(path: Path, **arrays) -> None:
@@ -95,6 +171,7 @@ def _clear_displacements(folder: Path) -> int:
         n += 1
     for p in folder.glob(".disp-*.part"):
         p.unlink()
+    (folder / _DIRECTIONS_FILE).unlink(missing_ok=True)
     return n
 
 
@@ -148,21 +225,20 @@ class HessianRun:
     key: str
     cleared: int = 0             # foreign displacement files removed from the cache folder
     asymmetry: float = 0.0       # max |H - Hᵀ| / 2 before symmetrisation, eV/Å² (a noise measure)
+    basis: str = "cartesian"     # displacement directions: "internal" or "cartesian"
 
     def to_record(self) -> dict:
         return {"step_angstrom": self.step, "gradient_calls": self.gradient_calls, "reused": self.reused,
                 "engine_seconds": round(self.engine_seconds, 4), "wall_seconds": round(self.wall_seconds, 4),
                 "cache_dir": self.cache_dir, "key": self.key, "cleared": self.cleared,
-                "asymmetry_ev_per_a2": self.asymmetry}
+                "asymmetry_ev_per_a2": self.asymmetry, "basis": self.basis}
 
 
-def _displaced_forces(work: Atoms, calc, base, step, key, folder: Path, i: int, a: int, sign: int):
-    """Forces (N, 3) at `base` with atom i moved by sign·step along axis a, written to the cache at once;
+def _displaced_forces(work: Atoms, calc, base, key, folder: Path, name: str, shift):
+    """Forces (N, 3) at `base` + `shift` (N, 3), written to the cache as `name` at once;
     (forces, engine seconds)."""
-    path = folder / _disp_name(i, a, sign)
-    pos = base.copy()
-    pos[i, a] += sign * step
-    work.positions = pos
+    path = folder / name
+    work.positions = base + shift
     work.calc = calc
     s = time.perf_counter()
     f = np.array(work.get_forces(), dtype=float)
@@ -176,28 +252,28 @@ def _displaced_forces(work: Atoms, calc, base, step, key, folder: Path, i: int, 
 def _forces_chunk(job):
     """Worker side of :func:`_parallel_forces`: a fresh calculator from the factory for every displacement
     (as in the serial path), so which process computes a displacement never changes its forces."""
-    factory, numbers, charges, magmoms, base, step, key, folder, chunk = job
+    factory, numbers, charges, magmoms, base, key, folder, chunk = job
     work = Atoms(numbers, positions=np.array(base, dtype=float))
     work.set_initial_charges(charges)
     work.set_initial_magnetic_moments(magmoms)
     out, engine = [], 0.0
-    for i, a, sign in chunk:
-        f, sec = _displaced_forces(work, factory(), np.asarray(base), step, key, Path(folder), i, a, sign)
-        out.append(((i, a, sign), f))
+    for name, shift in chunk:
+        f, sec = _displaced_forces(work, factory(), np.asarray(base), key, Path(folder), name, shift)
+        out.append((name, f))
         engine += sec
     return out, engine
 
 
-def _parallel_forces(executor, factory, work: Atoms, base, step, key, folder: Path, missing):
+def _parallel_forces(executor, factory, work: Atoms, base, key, folder: Path, missing):
     """Displacement forces split over `executor`'s worker processes and this one: the displacements go out
     in small chunks; this process takes back any chunk no worker has started yet (so a worker still
-    starting up never holds the others back). Returns ({(i, a, sign): forces}, engine seconds summed over
+    starting up never holds the others back). Returns ({name: forces}, engine seconds summed over
     processes)."""
     workers = max(1, int(getattr(executor, "_max_workers", 1)))
     size = max(1, min(8, math.ceil(len(missing) / (6 * (workers + 1)))))
     chunks = [missing[k:k + size] for k in range(0, len(missing), size)]
     args = [(factory, work.numbers.copy(), work.get_initial_charges(), work.get_initial_magnetic_moments(),
-             base, step, key, str(folder), ch) for ch in chunks]
+             base, key, str(folder), ch) for ch in chunks]
     futures = [executor.submit(_forces_chunk, x) for x in args]
     results = []
     for fut, x in zip(reversed(futures), reversed(args)):
@@ -211,20 +287,104 @@ def _parallel_forces(executor, factory, work: Atoms, base, step, key, folder: Pa
     return forces, engine
 
 
-def hessian_run(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_tag: str | None = None,
-                executor=None) -> HessianRun:
-    """Cartesian Hessian by central differences of analytic gradients, with a resumable cache.
+def _displacements(atoms: Atoms, basis: str, step: float, folder: Path, key: str):
+    """The displacement set: (list of (file name, +shift (N, 3), −shift), the direction matrix or None).
 
-    H[3i+a, :] = -(F(x + h e_ia) - F(x - h e_ia)) / (2h) for each atom i and axis a (6N gradient calls;
-    the central-difference formula, e.g. Wilson, Decius, Cross, *Molecular Vibrations*, 1955, and any
-    numerical-analysis text), then H ← (H + Hᵀ)/2.  h = `step` Å (see DEFAULT_STEP for its choice).
+    "cartesian": atom i along axis a, ±step.  "internal": along each column b̂_k of B = M^-½ U / ‖·‖ (U the
+    mass-weighted basis of :func:`internal_basis`), ±step; U is kept in the cache folder with the key, so a
+    resumed Hessian uses exactly the directions its finished displacements were made along."""
+    natoms = len(atoms)
+    if basis == "cartesian":
+        out = []
+        for i in range(natoms):
+            for a in range(3):
+                shift = np.zeros((natoms, 3))
+                shift[i, a] = step
+                out.append(((_disp_name(i, a, +1), _disp_name(i, a, -1)), shift))
+        return out, None
+    u = _load_directions(folder, key, 3 * natoms)
+    if u is None:
+        if any(folder.glob("disp-*.npz")):
+            _clear_displacements(folder)       # displacements whose directions are not on record
+        u = internal_basis(atoms)
+        _save_directions(folder, key, u)
+    inv_sq = 1.0 / np.sqrt(np.repeat(np.asarray(atoms.get_masses(), dtype=float), 3))
+    b = inv_sq[:, None] * u
+    b_hat = b / np.linalg.norm(b, axis=0)[None, :]
+    out = [((_dir_name(k, +1), _dir_name(k, -1)), step * b_hat[:, k].reshape(natoms, 3))
+           for k in range(b_hat.shape[1])]
+    return out, u
+
+
+def assemble_hessian(atoms: Atoms, cols: np.ndarray, u: np.ndarray | None = None) -> tuple[np.ndarray, float]:
+    """(symmetrised Hessian (3N, 3N) eV/Å², asymmetry eV/Å²) from finite-difference columns.
+
+    `u` None: `cols` (3N, 3N) are the Cartesian rows H[3i+a]. Otherwise `cols` (n, 3N) are H b̂_k along the
+    unit directions of the mass-weighted internal basis `u` (3N, n), as :func:`hessian_run` describes."""
+    cols = np.asarray(cols, dtype=float)
+    if u is None:
+        asym = float(np.max(np.abs(cols - cols.T)) / 2.0)
+        return 0.5 * (cols + cols.T), asym
+    sq = np.sqrt(np.repeat(np.asarray(atoms.get_masses(), dtype=float), 3))
+    n3 = len(sq)
+    if u.shape[1] == 0:
+        return np.zeros((n3, n3)), 0.0
+    b = u / sq[:, None]
+    norms = np.linalg.norm(b, axis=0)
+    a_hat = (b / norms[None, :]).T @ cols.T                                   # B̂ᵀ H B̂, eV/Å²
+    asym = float(np.max(np.abs(a_hat - a_hat.T)) / 2.0)
+    f_int = norms[:, None] * (0.5 * (a_hat + a_hat.T)) * norms[None, :]        # Bᵀ H B = Uᵀ M^-½ H M^-½ U
+    hess = sq[:, None] * (u @ f_int @ u.T) * sq[None, :]
+    return 0.5 * (hess + hess.T), asym
+
+
+def cached_displacements(atoms: Atoms, folder, key: str, step: float):
+    """For a finished cache folder of :func:`hessian_run` (key `key`): (pairs, u), pairs a list of
+    ((+forces, −forces), +shift (N, 3)) in the order :func:`assemble_hessian` expects, u the internal
+    directions (None for a Cartesian set); None if a displacement or the directions are missing.
+    For benchmarks that rebuild Hessians from a run's cache."""
+    folder = Path(folder)
+    natoms = len(atoms)
+    basis = "internal" if (folder / _DIRECTIONS_FILE).exists() else "cartesian"
+    if basis == "internal" and _load_directions(folder, key, 3 * natoms) is None:
+        return None
+    disps, u = _displacements(atoms, basis, step, folder, key)
+    pairs = []
+    for (p, m), shift in disps:
+        fp, fm = _load_forces(folder / p, key, natoms), _load_forces(folder / m, key, natoms)
+        if fp is None or fm is None:
+            return None
+        pairs.append(((fp, fm), shift))
+    return pairs, u
+
+
+def hessian_run(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_tag: str | None = None,
+                executor=None, basis: str = DEFAULT_BASIS) -> HessianRun:
+    """Hessian by central differences of analytic gradients, with a resumable cache.
+
+    ``basis="cartesian"``: H[3i+a, :] = -(F(x + h e_ia) - F(x - h e_ia)) / (2h) for each atom i and axis
+    a (6N gradient calls; the central-difference formula, e.g. Wilson, Decius, Cross, *Molecular
+    Vibrations*, 1955, and any numerical-analysis text), then H ← (H + Hᵀ)/2.
+
+    ``basis="internal"`` (default): the same central difference along each unit direction b̂_k = b_k/‖b_k‖,
+    b_k = M^-½ u_k, u_k the orthonormal mass-weighted basis of the complement of translations and
+    rotations (:func:`internal_basis`), 2(3N − 6) gradient calls, gives the columns H b̂_k; the projected
+    mass-weighted Hessian is F_int = Uᵀ M^-½ H M^-½ U = Bᵀ H B, symmetrised, and the Hessian returned is
+    M^½ U F_int Uᵀ M^½, the Cartesian Hessian with translations and rotations projected out (in the
+    Eckart sense; Miller, Handy, Adams, J. Chem. Phys. 1980, 72, 99).  chairqm.vibrations.frequencies
+    projects the same way, so it returns the frequencies of F_int: those of the full Cartesian Hessian up
+    to the finite-difference error, which is of the same order (measured in docs/benchmarks.md, part f).
+    `asymmetry` is then max |A − Aᵀ|/2 of A = B̂ᵀ H B̂ (eV/Å²).
+
+    h = `step` Å (see DEFAULT_STEP for its choice).
 
     The cache folder `cache_dir` belongs to one geometry: ``key.json`` holds the hash of the geometry
-    (positions rounded to 1e-5 Å, atomic numbers, charge, spin), the step and the calculator's settings;
-    each displacement's forces are written atomically (temporary file, then os.replace) to
-    ``disp-IIII-{x,y,z}{+,-}.npz`` as soon as they are computed, each file also carrying the key.  A
-    rerun reuses the finished displacements; a folder holding another key's files is cleared first (a
-    warning is logged) and a file with a foreign key is never read, so forces of two geometries never mix.
+    (positions rounded to 1e-5 Å, atomic numbers, charge, spin), the step, the basis and the calculator's
+    settings; each displacement's forces are written atomically (temporary file, then os.replace) to
+    ``disp-IIII-{x,y,z}{+,-}.npz`` (Cartesian) or ``disp-vKKKK{+,-}.npz`` (internal, with the directions
+    in ``directions.npz``) as soon as they are computed, each file also carrying the key.  A rerun reuses
+    the finished displacements; a folder holding another key's files is cleared first (a warning is
+    logged) and a file with a foreign key is never read, so forces of two geometries never mix.
 
     `calc` is an ASE calculator or a zero-argument factory returning a new one.  With a factory every
     displacement gets a new calculator, so its SCF starts from the engine's own guess whatever was
@@ -245,6 +405,8 @@ def hessian_run(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_
     step = float(step)
     if not step > 0:
         raise ChairqmError(f"finite-difference step must be positive, got {step} Å")
+    if basis not in BASES:
+        raise ChairqmError(f"Hessian basis must be one of {', '.join(BASES)}, got {basis!r}")
     natoms = len(atoms)
     if natoms == 0:
         raise ChairqmError("cannot compute a Hessian for an empty structure")
@@ -252,7 +414,7 @@ def hessian_run(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_
     if factory is not None:
         calc = factory()
     tag = calculator_tag(calc) if calc_tag is None else str(calc_tag)
-    key = geometry_key(atoms, step, tag)
+    key = geometry_key(atoms, step, tag, basis=basis)
     folder = Path(cache_dir)
     cleared = _prepare_cache(folder, key, natoms, step, tag)
 
@@ -261,48 +423,45 @@ def hessian_run(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_
     work.set_initial_charges(atoms.get_initial_charges())
     work.set_initial_magnetic_moments(atoms.get_initial_magnetic_moments())
 
-    hess = np.zeros((3 * natoms, 3 * natoms))
+    disps, u = _displacements(atoms, basis, step, folder, key)
     forces, calls, reused, engine = {}, 0, 0, 0.0
     missing = []
-    for i in range(natoms):
-        for a in range(3):
-            for sign in (+1, -1):
-                f = _load_forces(folder / _disp_name(i, a, sign), key, natoms)
-                if f is None:
-                    missing.append((i, a, sign))
-                else:
-                    forces[(i, a, sign)] = f
-                    reused += 1
+    for names, shift in disps:
+        for name, sh in zip(names, (shift, -shift)):
+            f = _load_forces(folder / name, key, natoms)
+            if f is None:
+                missing.append((name, sh))
+            else:
+                forces[name] = f
+                reused += 1
     if missing and executor is not None and factory is not None and len(missing) > 1:
-        got, engine = _parallel_forces(executor, factory, work, base, step, key, folder, missing)
+        got, engine = _parallel_forces(executor, factory, work, base, key, folder, missing)
         forces.update(got)
         calls = len(missing)
     else:
-        for i, a, sign in missing:
+        for name, sh in missing:
             if factory is not None and calls > 0:
                 calc = factory()
             elif factory is None:
                 calc.reset()
-            f, sec = _displaced_forces(work, calc, base, step, key, folder, i, a, sign)
-            forces[(i, a, sign)] = f
+            f, sec = _displaced_forces(work, calc, base, key, folder, name, sh)
+            forces[name] = f
             engine += sec
             calls += 1
-    for i in range(natoms):
-        for a in range(3):
-            hess[3 * i + a] = -(forces[(i, a, +1)] - forces[(i, a, -1)]).ravel() / (2.0 * step)
-    asym = float(np.max(np.abs(hess - hess.T)) / 2.0)
-    hess = 0.5 * (hess + hess.T)
+    cols = np.array([-(forces[p] - forces[m]).ravel() / (2.0 * step) for (p, m), _ in disps])  # (n, 3N)
+    hess, asym = assemble_hessian(atoms, cols, u)
     run = HessianRun(hessian=hess, step=step, gradient_calls=calls, reused=reused, engine_seconds=engine,
                      wall_seconds=time.perf_counter() - t0, cache_dir=str(folder), key=key, cleared=cleared,
-                     asymmetry=asym)
+                     asymmetry=asym, basis=basis)
     _atomic_write_json(folder / _RUN_FILE, run.to_record())
     return run
 
 
-def hessian(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_tag: str | None = None) -> np.ndarray:
+def hessian(atoms: Atoms, calc, cache_dir, step: float = DEFAULT_STEP, calc_tag: str | None = None,
+            basis: str = DEFAULT_BASIS) -> np.ndarray:
     """The symmetrised Cartesian Hessian (3N, 3N) in eV/Å²; see :func:`hessian_run` (which also returns
     gradient_calls and engine seconds; both are recorded in ``cache_dir/run.json``)."""
-    return hessian_run(atoms, calc, cache_dir, step=step, calc_tag=calc_tag).hessian
+    return hessian_run(atoms, calc, cache_dir, step=step, calc_tag=calc_tag, basis=basis).hessian
 
 
 # ------------------------------------------------------------------------------------------ frequencies

@@ -2,9 +2,10 @@
 
 Three jobs, each a plain function:
 
-- :func:`hessian` (and :func:`hessian_run`, which also returns its accounting): the Cartesian Hessian by
-  central finite differences of analytic gradients, 6N gradient calls, with a per-conformer cache folder
-  that survives an interrupted run and refuses to mix geometries.
+- :func:`hessian` (and :func:`hessian_run`, which also returns its accounting): the Hessian by central
+  finite differences of analytic gradients along the 3N − 6 internal directions (2(3N − 6) gradient
+  calls; or along every Cartesian axis, 6N), with a per-conformer cache folder that survives an
+  interrupted run and refuses to mix geometries.
 - :func:`frequencies`: harmonic frequencies in cm⁻¹ and Cartesian normal modes, with translations and
   rotations projected out of the mass-weighted Hessian.
 - :func:`prove_minimum`: an imaginary mode beyond a threshold is followed downhill (displace both ways,
@@ -23,7 +24,6 @@ from pathlib import Path
 import numpy as np
 from ase import Atoms
 from ase.units import create_units
-from scipy.linalg import null_space
 
 from chairqm.errors import ChairqmError
 from chairqm.units import HARTREE_EV, KCAL_PER_HARTREE
@@ -39,35 +39,7 @@ _HBAR_OMEGA_EV = units._hbar * units.m / math.sqrt(units._e * units._amu)
 
 # the Hessian itself lives in chairqm.hessian; these names stay importable from here
 from chairqm.hessian import (DEFAULT_STEP, KEY_DECIMALS, HessianRun, calculator_tag,  # noqa: E402,F401
-                             geometry_key, hessian, hessian_run)
-
-
-def external_basis(atoms: Atoms, tol: float = 1e-6) -> np.ndarray:
-    """Orthonormal basis (3N, k) of mass-weighted translations and infinitesimal rotations about the
-    centre of mass, k = 6 (nonlinear), 5 (linear) or 3 (one atom).
-
-    Translations: √m_i e_α; rotations: √m_i (e_α × (r_i − R_com)), the Eckart frame vectors (Eckart,
-    Phys. Rev. 1935, 47, 552; Miller, Handy, Adams, J. Chem. Phys. 1980, 72, 99).  Orthonormalised by SVD;
-    vectors with singular value below `tol` relative to the largest (the missing rotation of a linear
-    molecule) are dropped.
-    """
-    m = np.asarray(atoms.get_masses(), dtype=float)
-    r = np.asarray(atoms.positions, dtype=float)
-    r = r - (m[:, None] * r).sum(0) / m.sum()
-    sq = np.sqrt(m)
-    vecs = []
-    for a in range(3):
-        t = np.zeros_like(r)
-        t[:, a] = 1.0
-        vecs.append((sq[:, None] * t).ravel())
-    for a in range(3):
-        e = np.zeros(3)
-        e[a] = 1.0
-        vecs.append((sq[:, None] * np.cross(e, r)).ravel())
-    d = np.array(vecs).T
-    u, s, _ = np.linalg.svd(d, full_matrices=False)
-    keep = s > tol * s.max()
-    return u[:, keep]
+                             external_basis, geometry_key, hessian, hessian_run, internal_basis)
 
 
 def frequencies(hess: np.ndarray, atoms: Atoms) -> tuple[np.ndarray, np.ndarray]:
@@ -89,8 +61,7 @@ def frequencies(hess: np.ndarray, atoms: Atoms) -> tuple[np.ndarray, np.ndarray]
     m = np.repeat(np.asarray(atoms.get_masses(), dtype=float), 3)
     inv_sq = 1.0 / np.sqrt(m)
     fm = inv_sq[:, None] * 0.5 * (hess + hess.T) * inv_sq[None, :]
-    ext = external_basis(atoms)
-    internal = null_space(ext.T)           # orthonormal complement of the external space, (3N, 3N-k)
+    internal = internal_basis(atoms)       # orthonormal complement of the external space, (3N, 3N-k)
     fi = internal.T @ fm @ internal
     lam, vec = np.linalg.eigh(0.5 * (fi + fi.T))
     freqs = np.sign(lam) * _HBAR_OMEGA_EV * np.sqrt(np.abs(lam)) / units.invcm
@@ -167,7 +138,7 @@ def _fmt_imag(values) -> str:
 def prove_minimum(atoms: Atoms, calc_factory, reoptimize, cache_dir,
                   threshold_cm1: float = DEFAULT_IMAGINARY_THRESHOLD, max_rounds: int = 3,
                   displacement: float = DEFAULT_DISPLACEMENT, step: float = DEFAULT_STEP,
-                  energy_hartree: float | None = None, executor=None) -> MinimumProof:
+                  energy_hartree: float | None = None, executor=None, basis: str = "internal") -> MinimumProof:
     """Show that `atoms` (an optimised geometry) is a minimum, or follow its imaginary modes to one.
 
     Round 0 computes the Hessian and frequencies (:func:`hessian_run`, :func:`frequencies`) in
@@ -178,7 +149,8 @@ def prove_minimum(atoms: Atoms, calc_factory, reoptimize, cache_dir,
     If neither side lowered the energy by at least 1e-4 kcal/mol, the next round doubles the displacement.
 
     calc_factory() -> a new ASE calculator (the same settings as the optimisation); `executor` is passed to
-    :func:`hessian_run` (displacements split over worker processes).  `energy_hartree`
+    :func:`hessian_run` (displacements split over worker processes), and `basis` its displacement
+    directions ("internal": 2(3N − 6) gradients, "cartesian": 6N).  `energy_hartree`
     of the input geometry may be passed to save a single point.  Errors of the engine or optimiser give
     status 'failed' with the message in `history` (a ChairqmError, which the user must fix, is raised).
     The threshold: see DEFAULT_IMAGINARY_THRESHOLD; residual imaginary modes with |ν| below it are
@@ -198,7 +170,8 @@ def prove_minimum(atoms: Atoms, calc_factory, reoptimize, cache_dir,
     history = proof.history
 
     def analyse(geom: Atoms, rnd: int):
-        run = hessian_run(geom, calc_factory, cache_dir / f"round{rnd}", step=step, executor=executor)
+        run = hessian_run(geom, calc_factory, cache_dir / f"round{rnd}", step=step, executor=executor,
+                          basis=basis)
         proof.gradient_calls += run.gradient_calls
         proof.engine_seconds += run.engine_seconds
         proof.hessians.append(run.to_record())

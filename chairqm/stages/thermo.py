@@ -83,7 +83,8 @@ def _freq_one(job, executor=None):
         atoms, energy, max_rounds = eclipse_a_methyl(atoms, p.mol), None, 0
     proof = cq_vib.prove_minimum(atoms, factory, reoptimize, cache_dir,
                                  threshold_cm1=th["imaginary_threshold_cm1"], max_rounds=max_rounds,
-                                 step=th["step_a"], energy_hartree=energy, executor=executor)
+                                 step=th["step_a"], energy_hartree=energy, executor=executor,
+                                 basis=th.get("hessian_directions", "internal"))
     rec = {"key": key, "conformer": cid, "proof": proof.to_record(), "thermo_settings": th,
            "reopt_gradient_calls": opt_calls["n"],
            "engine_seconds": proof.engine_seconds + opt_calls["seconds"],
