@@ -164,8 +164,10 @@ def verbose_default() -> bool:
 
 class Progress:
     """Short progress lines while Snakemake runs: one per molecule and stage when all its output files are
-    newer than the run's start (Snakemake removes a job's outputs before running it) or its failure
-    record appears; read from the output folder, so it works the same for local and cluster jobs."""
+    new since the watcher was made (absent then, or written again since: Snakemake removes a job's outputs
+    before running it) or its failure record appears; read from the output folder, so it works the same
+    for local and cluster jobs. The files' state is taken when the watcher is made rather than compared
+    with the start time, so outputs a run just before wrote are never mistaken for this run's."""
 
     def __init__(self, out: Path, plan, settings, until: str | None, start: float,
                  emit: Callable[[str], None]):
@@ -185,12 +187,20 @@ class Progress:
         self.width = max([len(n) for n in self.molecules] + [len("all molecules")])
         self.seen: set = set()
         self.failed_seen: set = set()
+        self.before = {p: self._stamp(p) for _, _, paths in self.watch for p in paths}
+        self.before.update({p: self._stamp(p) for p in (out / m / stages.FAILURE_RECORD for m in self.molecules)})
+
+    @staticmethod
+    def _stamp(path: Path):
+        try:
+            st = path.stat()
+        except OSError:
+            return None
+        return st.st_mtime_ns, st.st_ino, st.st_size
 
     def _fresh(self, path: Path) -> bool:
-        try:
-            return path.stat().st_mtime >= self.start - 1.0
-        except OSError:
-            return False
+        now = self._stamp(path)
+        return now is not None and now != self.before.get(path)
 
     def poll(self):
         from . import fileio, stages
@@ -296,8 +306,12 @@ def run(config, out=None, cores: int = 2, until: str | None = None, profile: str
     if retry and not dry:
         print(f"chairqm: retrying what failed before: {', '.join(retry)}", file=sys.stderr)
     show = verbose or dry           # a dry run's plan is what the user asked to see
-    cmd = [sys.executable, "-m", "snakemake", target, "--snakefile", str(workflow.snakefile()), "--directory",
-           str(out), "--config", f"chairqm_config={config_path.resolve()}", "--cores", str(cores),
+    # Snakemake's own command line, through chairqm.workflow.launch: on the local executor it leaves out the
+    # job-rate limiter's one-second exit delay (that module says why)
+    from .workflow import launch
+    local = [launch.LOCAL_FLAG] if _executor(extra) == "local" else []
+    cmd = [sys.executable, "-m", "chairqm.workflow.launch", *local, target, "--snakefile", str(workflow.snakefile()),
+           "--directory", str(out), "--config", f"chairqm_config={config_path.resolve()}", "--cores", str(cores),
            "--rerun-incomplete", "--keep-going", "--nolock", "--printshellcmds",
            *(["--forcerun", *retry] if retry else []), *extra]
     env = dict(os.environ)
@@ -351,7 +365,7 @@ def run(config, out=None, cores: int = 2, until: str | None = None, profile: str
     return RunResult(out, until=until, returncode=0, molecules=plan.names())
 
 
-#: Disk space a run takes, estimated per molecule of N atoms: the cached Hessian displacements (6N+1 files,
+#: Disk space a run takes, estimated per molecule of N atoms: the cached Hessian displacements (at most 6N+1 files,
 #: one 4 KiB block each) of HESSIANS_PER_MOLECULE conformers, their records and geometries, and the
 #: molecule's tables; plus the run's own files. Measured on methylcyclohexane (21 atoms, 2 chairs): 1.9 MB
 #: on disk in all, of which 1.0 MB Hessian displacements; the estimate gives 3.7 MB.

@@ -19,6 +19,7 @@ SCRIPTS = {
     "refine.py": [],
     "rings.py": [],
     "avalue.py": [pytest.mark.slow],
+    "fixed_cost.py": [pytest.mark.slow],
 }
 # scripts that rebuild or report data rather than measure (no --quick): tested below and in test_avalues.py
 DATA_SCRIPTS = {"build_avalue_table.py", "avalue_table_diff.py", "calibration_report.py", "refine_auto.py",
