@@ -60,9 +60,11 @@ class RecordingProxy:
 
 
 # Chromium calls home by itself even for an empty page (network clock, sign-in, update redirector: measured
-# here with a blank file and every --disable flag below). Those hosts are not the page's; fonts.googleapis.com,
-# gstatic.com and every other host a page could pull resources from stay counted.
-BROWSER_OWN = re.compile(r"^(www|accounts|clients\d)\.google\.com$|^redirector\.gvt1\.com$")
+# here with a blank file and every --disable flag below; Debian's chromium 156.0.8078.114 also posts to its
+# component updater, update.googleapis.com/service/update2, despite --disable-component-update). Those
+# hosts are not the page's; fonts.googleapis.com, gstatic.com and every other host a page could pull
+# resources from stay counted.
+BROWSER_OWN = re.compile(r"^(www|accounts|clients\d)\.google\.com$|^redirector\.gvt1\.com$|^update\.googleapis\.com$")
 
 
 def _host(request_line: str) -> str:
