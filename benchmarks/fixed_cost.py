@@ -39,8 +39,6 @@ from pathlib import Path
 import _common as C
 
 SNAKEFILE = """
-STAGES = ["intake", "seeds", "minima", "thermo", "ensemble", "report"]
-
 rule all:
     input: "m/report.done"
 

@@ -130,13 +130,6 @@ def internal_basis(atoms: Atoms) -> np.ndarray:
     return null_space(external_basis(atoms).T)
 
 
-def _save_directions(folder: Path, key: str, basis_mw: np.ndarray) -> None:
-    import io
-    buf = io.BytesIO()
-    np.savez(buf, basis=basis_mw, key=np.array(key))
-    fileio.write_bytes(folder / _DIRECTIONS_FILE, buf.getvalue(), fsync=False)
-
-
 def _load_directions(folder: Path, key: str, n3: int):
     try:
         with np.load(folder / _DIRECTIONS_FILE, allow_pickle=False) as data:
@@ -288,7 +281,8 @@ def _parallel_forces(executor, factory, work: Atoms, base, key, folder: Path, mi
 
 
 def _displacements(atoms: Atoms, basis: str, step: float, folder: Path, key: str):
-    """The displacement set: (list of (file name, +shift (N, 3), −shift), the direction matrix or None).
+    """The displacement set: (list of ((file name +, file name −), +shift (N, 3)), the internal directions U
+    or None for "cartesian").
 
     "cartesian": atom i along axis a, ±step.  "internal": along each column b̂_k of B = M^-½ U / ‖·‖ (U the
     mass-weighted basis of :func:`internal_basis`), ±step; U is kept in the cache folder with the key, so a
@@ -307,7 +301,7 @@ def _displacements(atoms: Atoms, basis: str, step: float, folder: Path, key: str
         if any(folder.glob("disp-*.npz")):
             _clear_displacements(folder)       # displacements whose directions are not on record
         u = internal_basis(atoms)
-        _save_directions(folder, key, u)
+        _atomic_write_npz(folder / _DIRECTIONS_FILE, basis=u, key=np.array(key))
     inv_sq = 1.0 / np.sqrt(np.repeat(np.asarray(atoms.get_masses(), dtype=float), 3))
     b = inv_sq[:, None] * u
     b_hat = b / np.linalg.norm(b, axis=0)[None, :]
